@@ -1,0 +1,174 @@
+"""Far-field emission of an amplitude vector in free space.
+
+dP/dΩ(n̂) = (3Γ0/8π) |Σ_j c_j (I − n̂n̂)·d_j e^{−ik0 n̂·r_j}|²   [Γ0 per steradian]
+
+This is the input–output relation (field radiated through the far-zone
+Green's function) with the emitted power counted in photons per 1/Γ0.  For a
+unit-norm amplitude vector its integral over the sphere equals c†Γc with
+Γ = i(H − H†), so for an eigenvector it is that mode's decay rate exactly.
+
+References
+----------
+J. D. Jackson, *Classical Electrodynamics*, 3rd ed. (Wiley, 1999), Sec. 9.2
+(electric dipole radiation); A. Asenjo-Garcia et al., Phys. Rev. X 7, 031024
+(2017) (input–output relation for emitter arrays).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .free_space import K0
+from .geometry import Emitters
+
+__all__ = [
+    "far_field_power",
+    "sphere_grid",
+    "cap_grid",
+    "total_power",
+    "collected_fraction",
+    "angular_order",
+    "AngularGrid",
+    "directions_from_angles",
+]
+
+_PREF = 3.0 / (8.0 * np.pi)
+_CHUNK_ELEMENTS = 4_000_000  # directions × emitters per block (64 MB of complex)
+
+
+def directions_from_angles(theta: np.ndarray, phi: np.ndarray) -> np.ndarray:
+    """Unit vectors (..., 3) for polar angle θ from +z and azimuth φ [rad]."""
+    st = np.sin(theta)
+    return np.stack([st * np.cos(phi), st * np.sin(phi), np.cos(theta)], axis=-1)
+
+
+def far_field_power(em: Emitters, amplitudes: np.ndarray, directions: np.ndarray) -> np.ndarray:
+    """Power radiated per unit solid angle in each direction.
+
+    Parameters
+    ----------
+    em : Emitters
+    amplitudes : (N,) array_like of complex
+        Excitation amplitudes c_j (for example a mode's eigenvector).
+    directions : (M, 3) array_like of float
+        Observation directions (normalised here).
+
+    Returns
+    -------
+    (M,) float ndarray
+        dP/dΩ [Γ0 per steradian].
+
+    References
+    ----------
+    Jackson, *Classical Electrodynamics* (1999), Eq. (9.22), in units where a
+    single excited emitter radiates Γ0 in total.
+    """
+    c = np.asarray(amplitudes, dtype=complex)
+    if c.shape != (em.n,):
+        raise ValueError(f"amplitudes: expected shape ({em.n},), got {c.shape}")
+    n_hat = np.atleast_2d(np.asarray(directions, dtype=float))
+    if n_hat.shape[-1] != 3:
+        raise ValueError(f"directions: expected shape (M, 3), got {n_hat.shape}")
+    n_hat = n_hat / np.linalg.norm(n_hat, axis=1, keepdims=True)
+    # centre the array: a global phase changes nothing but keeps phases small
+    pos = em.positions - em.positions.mean(axis=0)
+    weighted = c[:, None] * em.dipoles  # (N, 3)
+    out = np.empty(n_hat.shape[0])
+    step = max(1, _CHUNK_ELEMENTS // max(em.n, 1))
+    for s in range(0, n_hat.shape[0], step):
+        nb = n_hat[s:s + step]
+        phase = np.exp(-1j * K0 * (nb @ pos.T))  # (m, N)
+        field = phase @ weighted  # (m, 3)
+        field -= nb * np.sum(nb * field, axis=1, keepdims=True)
+        out[s:s + step] = _PREF * np.sum(np.abs(field) ** 2, axis=1)
+    return out
+
+
+@dataclass(frozen=True)
+class AngularGrid:
+    """Directions with quadrature weights: ∫ f dΩ ≈ Σ w_k f(n̂_k).
+
+    Gauss–Legendre in cos θ times a uniform (trapezoidal) rule in φ, exact for
+    band-limited angular functions up to the resolved order.
+    """
+
+    theta: np.ndarray  # (M,) [rad]
+    phi: np.ndarray  # (M,) [rad]
+    weights: np.ndarray  # (M,) [sr]
+
+    @property
+    def directions(self) -> np.ndarray:
+        return directions_from_angles(self.theta, self.phi)
+
+
+def angular_order(em: Emitters) -> int:
+    """Angular band limit L of |far field|² for this arrangement.
+
+    The amplitude has plane-wave phases k0 n̂·r_j with |r_j| ≤ R about the
+    centroid, so |E|² is band-limited to about 2k0R plus the dipole factor; the
+    spherical-Bessel tails beyond order k0R fall off over a width ∝ (k0R)^{1/3}
+    (common practice, no source), hence the margin.  With it the sphere
+    integral of a mode reproduces its decay rate to ~1e-14 (tests).
+    """
+    pos = em.positions - em.positions.mean(axis=0)
+    kr = K0 * float(np.max(np.linalg.norm(pos, axis=1)))
+    return int(np.ceil(2.0 * kr + 16.0 + 10.0 * kr ** (1.0 / 3.0)))
+
+
+def _grid(order: int, mu_low: float, mu_high: float) -> AngularGrid:
+    n_mu = order // 2 + 2
+    n_phi = order + 2
+    x, w = np.polynomial.legendre.leggauss(n_mu)
+    mu = 0.5 * (mu_high - mu_low) * x + 0.5 * (mu_high + mu_low)
+    w_mu = 0.5 * (mu_high - mu_low) * w
+    phi = 2.0 * np.pi * np.arange(n_phi) / n_phi
+    MU, PHI = np.meshgrid(mu, phi, indexing="ij")
+    W = np.repeat(w_mu[:, None] * (2.0 * np.pi / n_phi), n_phi, axis=1)
+    return AngularGrid(np.arccos(np.clip(MU.ravel(), -1, 1)), PHI.ravel(), W.ravel())
+
+
+def sphere_grid(order: int) -> AngularGrid:
+    """Quadrature over the full sphere, exact for spherical harmonics up to ``order``."""
+    return _grid(max(int(order), 4), -1.0, 1.0)
+
+
+def cap_grid(order: int, half_angle: float, axis: str = "+z") -> AngularGrid:
+    """Quadrature over the cap θ ≤ half_angle about +z (or about −z with axis="-z")."""
+    mu0 = float(np.cos(half_angle))
+    g = _grid(max(int(order), 4), mu0, 1.0)
+    if axis == "+z":
+        return g
+    if axis == "-z":
+        return AngularGrid(np.pi - g.theta, g.phi, g.weights)
+    raise ValueError(f"axis: {axis!r} is not allowed; allowed: +z, -z")
+
+
+def total_power(em: Emitters, amplitudes: np.ndarray) -> float:
+    """Total emitted power ∫ dP/dΩ dΩ [Γ0], by quadrature over the sphere."""
+    g = sphere_grid(angular_order(em))
+    return float(np.sum(g.weights * far_field_power(em, amplitudes, g.directions)))
+
+
+def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
+                       axis: str = "+z") -> float:
+    """Fraction of the emitted power inside a lens of numerical aperture ``na``.
+
+    The lens (in vacuum) looks along ``axis`` ("+z" or "−z" written "-z") and
+    accepts directions within arcsin(NA) of it.
+
+    Parameters
+    ----------
+    na : float
+        Numerical aperture, 0 < NA ≤ 1.
+    """
+    na = float(na)
+    if not 0.0 < na <= 1.0:
+        raise ValueError(f"na: {na} is out of range; allowed 0 < NA ≤ 1 (lens in vacuum)")
+    order = angular_order(em)
+    cap = cap_grid(order, np.arcsin(na), axis)
+    inside = float(np.sum(cap.weights * far_field_power(em, amplitudes, cap.directions)))
+    total = total_power(em, amplitudes)
+    if total <= 0.0:
+        return float("nan")
+    return inside / total

@@ -1,0 +1,187 @@
+"""Free space: the 3D electromagnetic dyadic Green's function and the coupling it gives.
+
+Units: lengths in λ0, so k0 = 2π; couplings in Γ0.
+
+References
+----------
+R. H. Lehmberg, Phys. Rev. A 2, 883 (1970) — dipole–dipole couplings Ω_ij, Γ_ij.
+L. Novotny and B. Hecht, *Principles of Nano-Optics*, 2nd ed. (Cambridge, 2012),
+Sec. 8.3.1 — the free-space dyadic Green's function.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .geometry import Emitters
+
+__all__ = ["K0", "FreeSpace", "greens_tensor", "pair_coupling"]
+
+#: Free-space wavenumber in units of 1/λ0.
+K0 = 2.0 * np.pi
+
+# Row block for the all-pairs evaluation: bounds the temporary memory to
+# a few times 16·_BLOCK·N bytes.
+_BLOCK = 512
+
+
+def _radial_factors(r: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return e^{ik0 r}/(k0 r), a(r), b(r) with G = k0 e^{ik0 r}/(4π k0 r) [a I + b r̂r̂]."""
+    x = K0 * r
+    inv = 1.0 / x
+    a = 1.0 + 1j * inv - inv * inv
+    b = -1.0 - 3j * inv + 3.0 * inv * inv
+    return np.exp(1j * x) * inv, a, b
+
+
+def greens_tensor(r_vec: np.ndarray) -> np.ndarray:
+    """Free-space dyadic Green's function G(r) for r ≠ 0.
+
+    G(r) = e^{ik0 r}/(4π r) [(1 + i/(k0 r) − 1/(k0 r)²) I + (−1 − 3i/(k0 r) + 3/(k0 r)²) r̂ r̂],
+    the solution of ∇×∇×G − k0² G = δ(r) I.
+
+    Parameters
+    ----------
+    r_vec : (..., 3) ndarray of float
+        Displacements [λ0], none of them zero.
+
+    Returns
+    -------
+    (..., 3, 3) complex ndarray [1/λ0]
+
+    References
+    ----------
+    Novotny & Hecht, *Principles of Nano-Optics* (2012), Eq. (8.55).
+    """
+    r_vec = np.asarray(r_vec, dtype=float)
+    r = np.linalg.norm(r_vec, axis=-1)
+    if np.any(r == 0):
+        raise ValueError("greens_tensor: r = 0 is a singular point of the free-space Green's function")
+    e, a, b = _radial_factors(r)
+    rhat = r_vec / r[..., None]
+    pref = K0 * e / (4.0 * np.pi)
+    outer = rhat[..., :, None] * rhat[..., None, :]
+    return pref[..., None, None] * (a[..., None, None] * np.eye(3) + b[..., None, None] * outer)
+
+
+def pair_coupling(r_vec: np.ndarray, d_i: np.ndarray, d_j: np.ndarray) -> np.ndarray:
+    """Off-diagonal element H_ij = −(3π Γ0/k0) conj(d_i)·G(r_i − r_j)·d_j.
+
+    Written out, H_ij = −(3/4) e^{ik0 r}/(k0 r) [a (d_i*·d_j) + b (d_i*·r̂)(r̂·d_j)].
+
+    Parameters
+    ----------
+    r_vec : (..., 3) ndarray of float
+        r_i − r_j [λ0], non-zero.
+    d_i, d_j : (..., 3) ndarray of complex
+        Unit dipoles (broadcast against ``r_vec``).
+
+    Returns
+    -------
+    (...) complex ndarray [Γ0]
+
+    References
+    ----------
+    Lehmberg, Phys. Rev. A 2, 883 (1970); the sign and conjugation follow
+    i dc/dt = H c with H_ii = −iΓ0/2.
+    """
+    r = np.linalg.norm(r_vec, axis=-1)
+    e, a, b = _radial_factors(r)
+    rhat = r_vec / r[..., None]
+    dci = np.conj(d_i)
+    dd = np.sum(dci * d_j, axis=-1)
+    proj = np.sum(dci * rhat, axis=-1) * np.sum(rhat * d_j, axis=-1)
+    return -0.75 * e * (a * dd + b * proj)
+
+
+def _axis_steps(x: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """Integer grid indices k and step s with x = x.min() + s·k, or None."""
+    lo = x.min()
+    span = x.max() - lo
+    if span <= 1e-12:
+        return np.zeros(x.shape, dtype=np.int64), 1.0
+    u = np.unique(np.round(x - lo, 10))
+    step = np.diff(u).min()
+    k = (x - lo) / step
+    kr = np.round(k)
+    if not np.allclose(k, kr, rtol=0.0, atol=1e-7) or kr.max() > 1e6:
+        return None
+    step = float(np.dot(kr, x - lo) / np.dot(kr, kr))  # least-squares step: no rounding error
+    if not np.allclose(lo + step * kr, x, rtol=0.0, atol=1e-12 * max(1.0, span)):
+        return None
+    return kr.astype(np.int64), step
+
+
+def _lattice_gather(em: Emitters) -> np.ndarray | None:
+    """H off-diagonal by evaluating G once per distinct displacement, or None.
+
+    Applies when all dipoles are equal and every coordinate lies on a uniform
+    grid (all generated lattices); then H_ij depends only on integer
+    displacement indices, of which there are far fewer than N².
+    """
+    d = em.uniform_dipole
+    if d is None or em.n < 64:
+        return None
+    grids = [_axis_steps(em.positions[:, c]) for c in range(3)]
+    if any(g is None for g in grids):
+        return None
+    ks = [g[0] for g in grids]
+    steps = np.array([g[1] for g in grids])
+    m = np.array([k.max() for k in ks])
+    shape = 2 * m + 1
+    if np.prod(shape) > em.n * em.n // 4:
+        return None
+    axes = [np.arange(-mi, mi + 1) for mi in m]
+    dk = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, 3)
+    r_vec = dk * steps
+    zero = np.all(dk == 0, axis=1)
+    r_vec[zero] = (1.0, 0.0, 0.0)  # placeholder; the centre entry is the diagonal
+    table = pair_coupling(r_vec, d, d)
+    table[zero] = -0.5j
+    lin = (ks[0] * shape[1] + ks[1]) * shape[2] + ks[2]
+    offset = (m[0] * shape[1] + m[1]) * shape[2] + m[2]
+    return table[lin[:, None] - lin[None, :] + offset]
+
+
+@dataclass(frozen=True)
+class FreeSpace:
+    """Emitters in vacuum (or a uniform medium folded into λ0 and Γ0).
+
+    H_ij = −(3π Γ0/k0) conj(d_i)·G(r_i − r_j)·d_j for i ≠ j and H_ii = −iΓ0/2;
+    the divergent real part of the self-term is absorbed into ω0 (Lamb shift).
+
+    References
+    ----------
+    Lehmberg, Phys. Rev. A 2, 883 (1970); Ficek & Tanaś, Phys. Rep. 372, 369 (2002).
+    """
+
+    def coupling(self, em: Emitters) -> np.ndarray:
+        """Full (N, N) complex coupling matrix [Γ0], diagonal included.
+
+        Geometry must already be checked (no two emitters closer than
+        :data:`physics.geometry.MIN_DISTANCE`); see
+        :func:`physics.hamiltonian.coupling_matrix`.
+        """
+        H = _lattice_gather(em)
+        if H is None:
+            H = self._all_pairs(em)
+        return H
+
+    @staticmethod
+    def _all_pairs(em: Emitters) -> np.ndarray:
+        n = em.n
+        pos, dip = em.positions, em.dipoles
+        H = np.empty((n, n), dtype=complex)
+        for start in range(0, n, _BLOCK):
+            stop = min(start + _BLOCK, n)
+            r_vec = pos[start:stop, None, :] - pos[None, :, :]
+            rows = np.arange(start, stop)
+            r_vec[rows - start, rows] = (1.0, 0.0, 0.0)  # placeholder for i = j
+            H[start:stop] = pair_coupling(r_vec, dip[start:stop, None, :], dip[None, :, :])
+            H[rows, rows] = -0.5j
+        return H
+
+    def describe(self) -> str:
+        """One-line human description."""
+        return "free space"

@@ -1,0 +1,301 @@
+"""The ``choir`` command line: run scenarios headless, validate and write scenario files.
+
+Exit codes: 0 success, 2 bad input (message on stderr), 1 unexpected failure.
+"""
+from __future__ import annotations
+
+import argparse
+import csv
+import sys
+import warnings
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+
+from physics import scenario as scn
+from physics.far_field import collected_fraction, far_field_power, directions_from_angles
+from physics.hamiltonian import coupling_matrix
+from physics.lattices import GENERATORS
+from physics.modes import DefectiveMatrixWarning, Modes, modes_from_matrix
+from physics.units import TRANSITIONS
+
+__all__ = ["main"]
+
+MODEL_LIMITS = (
+    "Model: single excitation (weak excitation, linear optics), Markov approximation "
+    "(no retardation across the array), point two-level dipoles at rest."
+)
+
+
+class UsageError(Exception):
+    """Bad input from the user: reported on stderr with exit code 2."""
+
+
+# ------------------------------------------------------------------ formatting
+
+def _fmt_rate(rate: float, tr) -> str:
+    """Decay rate in Γ0, as Γ/2π in lab units, and the lifetime."""
+    hz = float(tr.frequency_mhz(rate)) * 1e6
+    tau_ns = float(tr.time_ns(1.0 / rate)) if rate > 0 else float("inf")
+    return f"Γ = {rate:.4g} Γ0  (Γ/2π = {_hz(hz)}, lifetime {_seconds(tau_ns * 1e-9)})"
+
+
+def _hz(hz: float) -> str:
+    for unit, scale in (("GHz", 1e9), ("MHz", 1e6), ("kHz", 1e3)):
+        if abs(hz) >= scale:
+            return f"{hz / scale:.4g} {unit}"
+    return f"{hz:.4g} Hz"
+
+
+def _seconds(s: float) -> str:
+    if not np.isfinite(s):
+        return "∞ (rate at round-off level)"
+    for unit, scale in (("s", 1.0), ("ms", 1e-3), ("µs", 1e-6), ("ns", 1e-9)):
+        if s >= scale:
+            return f"{s / scale:.4g} {unit}"
+    return f"{s / 1e-12:.4g} ps"
+
+
+def _geometry_text(sc: scn.Scenario, n: int) -> str:
+    g = dict(sc.geometry)
+    lat = g.pop("lattice")
+    if lat == "explicit":
+        return f"{n} emitters at explicit positions"
+    parts = []
+    for key, val in g.items():
+        if key.startswith("spacing") or key == "radius":
+            parts.append(f"{key} {val:g} λ0 = {float(sc.transition.length_nm(val)):.4g} nm")
+        else:
+            parts.append(f"{key} {val}")
+    return f"{n} emitters, {lat} ({', '.join(parts)})"
+
+
+def _dipole_text(sc: scn.Scenario) -> str:
+    d = dict(sc.dipole)
+    if "preset" in d:
+        return d["preset"]
+    if "theta_deg" in d:
+        return f"θ = {d['theta_deg']:g}°, φ = {d['phi_deg']:g}°"
+    if "vector" in d:
+        return "(" + ", ".join(f"{c:.3g}" for c in d["vector"]) + ")"
+    return "one vector per emitter"
+
+
+# ------------------------------------------------------------------ outputs
+
+def _write_spectrum(path: Path, modes: Modes, tr) -> None:
+    rates, shifts = modes.decay_rates, modes.shifts
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow(["mode", "shift_gamma0", "decay_rate_gamma0", "lifetime_per_gamma0",
+                    "shift_mhz", "decay_rate_mhz", "lifetime_ns", "participation_ratio",
+                    "petermann"])
+        life = modes.lifetimes
+        for m in range(modes.n):
+            w.writerow([m, repr(float(shifts[m])), repr(float(rates[m])), repr(float(life[m])),
+                        repr(float(tr.frequency_mhz(shifts[m]))),
+                        repr(float(tr.frequency_mhz(rates[m]))),
+                        repr(float(tr.time_ns(life[m]))),
+                        repr(float(modes.participation_ratio[m])),
+                        repr(float(modes.petermann[m]))])
+
+
+def _write_far_field(path: Path, em, amplitudes, mode: int) -> None:
+    theta = np.radians(np.arange(0.0, 180.0 + 1e-9, 2.0))
+    phi = np.radians(np.arange(0.0, 360.0, 4.0))
+    TH, PH = np.meshgrid(theta, phi, indexing="ij")
+    power = far_field_power(em, amplitudes, directions_from_angles(TH.ravel(), PH.ravel()))
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        fh.write(f"# far field of mode {mode}: dP/dOmega in units of Gamma0 per steradian; "
+                 f"theta from +z, phi from +x\n")
+        w = csv.writer(fh)
+        w.writerow(["theta_deg", "phi_deg", "dP_dOmega_gamma0_per_sr"])
+        for t, p, v in zip(np.degrees(TH.ravel()), np.degrees(PH.ravel()), power):
+            w.writerow([f"{t:.6g}", f"{p:.6g}", repr(float(v))])
+
+
+# ------------------------------------------------------------------ commands
+
+def _load(path: str) -> scn.Scenario:
+    try:
+        return scn.load(path)
+    except scn.ScenarioError as exc:
+        raise UsageError(f"{path}: {exc}") from None
+
+
+def cmd_validate(args) -> int:
+    sc = _load(args.scenario)
+    em = sc.emitters()
+    print(f"{args.scenario}: valid Choir scenario (version {scn.VERSION}); "
+          f"{_geometry_text(sc, em.n)}")
+    return 0
+
+
+def cmd_solve(args) -> int:
+    sc = _load(args.scenario)
+    em = sc.emitters()
+    tr = sc.transition
+    H = coupling_matrix(em, sc.environment_model())
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", DefectiveMatrixWarning)
+        modes = modes_from_matrix(H)
+    out = Path(args.out) if args.out else Path(Path(args.scenario).stem + "-results")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"--out: cannot create {out}: {exc.strerror}") from None
+
+    sel = sc.selected_mode
+    c = modes.vectors[:, sel]
+    frac_up = collected_fraction(em, c, sc.lens_na, "+z")
+    frac_down = collected_fraction(em, c, sc.lens_na, "-z")
+    rates = modes.decay_rates
+
+    lines = [
+        f"Choir — {sc.name or Path(args.scenario).name}",
+        f"  array:        {_geometry_text(sc, em.n)}",
+        f"  dipoles:      {_dipole_text(sc)}",
+        f"  environment:  {sc.environment_model().describe()}",
+        f"  transition:   {tr.name}, λ0 = {tr.wavelength_nm:.6g} nm, Γ0/2π = "
+        f"{_hz(tr.linewidth_mhz * 1e6)}, 1/Γ0 = {_seconds(tr.lifetime_ns * 1e-9)}",
+        f"  most radiant:     mode {modes.n - 1}: {_fmt_rate(rates[-1], tr)}",
+        f"  most subradiant:  mode 0: {_fmt_rate(rates[0], tr)}",
+        f"  selected mode {sel}: shift {modes.shifts[sel]:+.4g} Γ0 "
+        f"({_hz(float(tr.frequency_mhz(modes.shifts[sel])) * 1e6)}), {_fmt_rate(rates[sel], tr)}",
+        f"      participation ratio {modes.participation_ratio[sel]:.4g} of {em.n}, "
+        f"Petermann factor {modes.petermann[sel]:.4g}",
+        f"      lens NA {sc.lens_na:g}: collects {100 * frac_up:.3g}% along +z, "
+        f"{100 * frac_down:.3g}% along −z",
+        f"  check: Σ decay rates = {rates.sum():.6g} Γ0 (N = {em.n} expected)",
+        f"  {MODEL_LIMITS}",
+    ]
+    for w in caught:
+        lines.append(f"  warning: {w.message}")
+    _write_spectrum(out / "spectrum.csv", modes, tr)
+    np.savez_compressed(
+        out / "modes.npz", eigenvalues=modes.eigenvalues, vectors=modes.vectors,
+        left_vectors=modes.left_vectors, positions_lambda0=em.positions, dipoles=em.dipoles,
+        wavelength_nm=tr.wavelength_nm, linewidth_mhz=tr.linewidth_mhz)
+    _write_far_field(out / "far_field.csv", em, c, sel)
+    lines.append(f"  wrote {out / 'spectrum.csv'}, {out / 'modes.npz'}, {out / 'far_field.csv'}")
+    print("\n".join(lines))
+    return 0
+
+
+_FLAG_FOR_FIELD = {
+    "geometry.n": "--n", "geometry.nx": "--nx", "geometry.ny": "--ny", "geometry.nz": "--nz",
+    "geometry.spacing": "--spacing", "geometry.spacing_x": "--spacing-x",
+    "geometry.spacing_y": "--spacing-y", "geometry.radius": "--radius",
+    "geometry.axis": "--axis", "geometry.disk_lattice": "--disk-lattice",
+    "dipole.preset": "--dipole", "transition.preset": "--transition", "dipole.theta_deg": "--theta-deg", "dipole.phi_deg": "--phi-deg",
+    "transition.wavelength_nm": "--wavelength-nm", "transition.linewidth_mhz": "--linewidth-mhz",
+    "analysis.lens_na": "--na", "analysis.selected_mode": "--mode", "name": "--name",
+}
+
+
+def cmd_new(args) -> int:
+    geo = {"lattice": args.lattice}
+    for key in ("n", "nx", "ny", "nz", "spacing", "spacing_x", "spacing_y", "radius", "axis",
+                "disk_lattice"):
+        val = getattr(args, key)
+        if val is not None:
+            geo[key] = val
+    if args.theta_deg is not None or args.phi_deg is not None:
+        dipole = {"theta_deg": args.theta_deg if args.theta_deg is not None else 90.0,
+                  "phi_deg": args.phi_deg if args.phi_deg is not None else 0.0}
+    else:
+        dipole = {"preset": args.dipole}
+    if args.wavelength_nm is not None or args.linewidth_mhz is not None:
+        if args.wavelength_nm is None or args.linewidth_mhz is None:
+            raise UsageError("--wavelength-nm and --linewidth-mhz go together (or use --transition)")
+        transition = {"wavelength_nm": args.wavelength_nm, "linewidth_mhz": args.linewidth_mhz}
+    else:
+        transition = {"preset": args.transition}
+    doc = {"format": scn.FORMAT, "version": scn.VERSION}
+    if args.name:
+        doc["name"] = args.name
+    doc.update({"transition": transition, "geometry": geo, "dipole": dipole,
+                "environment": {"kind": "free_space"},
+                "analysis": {"selected_mode": args.mode, "lens_na": args.na, "lens_axis": "+z"}})
+    try:
+        sc = scn.from_dict(doc)
+    except scn.ScenarioError as exc:
+        flag = _FLAG_FOR_FIELD.get(exc.path)
+        if flag is None and exc.path == "geometry" and "missing field" in exc.message:
+            missing = exc.message.split("'")[1]
+            flag = _FLAG_FOR_FIELD.get(f"geometry.{missing}", missing)
+            raise UsageError(f"{flag} is required for --lattice {args.lattice}") from None
+        if flag is None and exc.path == "geometry" and "does not belong" in exc.message:
+            raise UsageError(f"--lattice {args.lattice}: {exc.message}") from None
+        raise UsageError(f"{flag or exc.path}: {exc.message}") from None
+    sys.stdout.write(scn.dumps(sc))
+    return 0
+
+
+# ------------------------------------------------------------------ parser
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str):  # exit 2 with a one-line message, as argparse does
+        self.print_usage(sys.stderr)
+        self.exit(2, f"choir: error: {message}\n")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="choir", description="Collective modes of emitter arrays (single-excitation "
+                "spin model). " + MODEL_LIMITS)
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    s = sub.add_parser("solve", help="solve a scenario: summary, spectrum CSV, modes NPZ, far field")
+    s.add_argument("scenario", help="scenario file (.json)")
+    s.add_argument("--out", help="output folder (default: <scenario name>-results)")
+    s.set_defaults(func=cmd_solve)
+
+    v = sub.add_parser("validate", help="check a scenario file and report what it describes")
+    v.add_argument("scenario")
+    v.set_defaults(func=cmd_validate)
+
+    n = sub.add_parser("new", help="write a scenario from flags to standard output")
+    n.add_argument("--lattice", required=True, choices=list(GENERATORS))
+    n.add_argument("--n", type=int, help="emitters in a chain or ring")
+    n.add_argument("--nx", type=int, help="emitters (or cells) along x")
+    n.add_argument("--ny", type=int, help="emitters (or cells) along y")
+    n.add_argument("--nz", type=int, help="emitters along z (cubic)")
+    n.add_argument("--spacing", type=float, help="nearest-neighbour distance [λ0]")
+    n.add_argument("--spacing-x", dest="spacing_x", type=float, help="rectangular: spacing along x [λ0]")
+    n.add_argument("--spacing-y", dest="spacing_y", type=float, help="rectangular: spacing along y [λ0]")
+    n.add_argument("--radius", type=float, help="disk radius [λ0]")
+    n.add_argument("--axis", help="chain axis: x, y or z")
+    n.add_argument("--disk-lattice", dest="disk_lattice", help="disk: square or triangular")
+    n.add_argument("--dipole", default="x", help="x, y, z, sigma+, sigma-, radial, tangential")
+    n.add_argument("--theta-deg", dest="theta_deg", type=float, help="dipole polar angle [deg]")
+    n.add_argument("--phi-deg", dest="phi_deg", type=float, help="dipole azimuth [deg]")
+    n.add_argument("--transition", default="Rb87 D2", help="preset: " + ", ".join(TRANSITIONS))
+    n.add_argument("--wavelength-nm", dest="wavelength_nm", type=float, help="custom λ0 [nm]")
+    n.add_argument("--linewidth-mhz", dest="linewidth_mhz", type=float, help="custom Γ0/2π [MHz]")
+    n.add_argument("--na", type=float, default=0.5, help="lens numerical aperture (0, 1]")
+    n.add_argument("--mode", type=int, default=0, help="selected mode (0 = most subradiant)")
+    n.add_argument("--name", help="scenario name")
+    n.set_defaults(func=cmd_new)
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.func(args)
+    except UsageError as exc:
+        print(f"choir: error: {exc}", file=sys.stderr)
+        return 2
+    except ValueError as exc:  # physics refusals (geometry, ranges) are bad input too
+        print(f"choir: error: {exc}", file=sys.stderr)
+        return 2
+    except MemoryError:
+        print("choir: error: not enough memory for this array on this machine; reduce N",
+              file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -68,7 +68,10 @@ def _normalise_rows(d: np.ndarray, what: str) -> np.ndarray:
     if bad.size:
         where = "" if d.ndim == 1 else f" (emitter {int(bad[0])})"
         raise ValueError(f"{what}: dipole vector is zero{where}; give a non-zero vector")
-    return d / norms[..., None]
+    # leave rows that are already unit (to round-off) untouched, so normalising
+    # is idempotent bit for bit and saved files reload exactly
+    done = np.abs(norms - 1.0) <= 4 * np.finfo(float).eps
+    return np.where(done[..., None], d, d / norms[..., None])
 
 
 def dipole_vector(spec: DipoleLike) -> np.ndarray:

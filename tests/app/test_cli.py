@@ -1,0 +1,96 @@
+"""The choir command line: every demo scenario solves, bad input exits 2 with a message."""
+from __future__ import annotations
+
+import csv
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from app.cli import main
+from physics import scenario as scn
+
+ROOT = Path(__file__).parents[2]
+SCENARIOS = sorted((ROOT / "scenarios").glob("*.json"))
+
+
+def run_cli(*args: str) -> subprocess.CompletedProcess:
+    """Run ``choir`` as a separate process, exactly as a user would."""
+    return subprocess.run([sys.executable, "-m", "app.cli", *args], capture_output=True,
+                          text=True, cwd=ROOT, timeout=300)
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_every_demo_scenario_solves(path, tmp_path):
+    res = run_cli("solve", str(path), "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    assert "most subradiant" in res.stdout and "Model:" in res.stdout
+    sc = scn.load(path)
+    n = sc.emitters().n
+    with open(tmp_path / "spectrum.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == n
+    rates = np.array([float(r["decay_rate_gamma0"]) for r in rows])
+    # sum rule Σ Γ_m = N Γ0 (trace of the decay matrix; exact identity)
+    assert rates.sum() == pytest.approx(n, rel=1e-9)
+    # lab units: lifetime [ns] = 1 / (2π · Γ/2π[MHz] · 1e6) · 1e9 (definition)
+    r = rows[-1]
+    assert float(r["lifetime_ns"]) == pytest.approx(
+        1e3 / (2 * np.pi * float(r["decay_rate_mhz"])), rel=1e-12)
+    data = np.load(tmp_path / "modes.npz")
+    assert data["vectors"].shape == (n, n)
+    far = np.loadtxt(tmp_path / "far_field.csv", delimiter=",", skiprows=2)
+    assert far.shape[1] == 3 and np.all(far[:, 2] >= 0)
+
+
+def test_new_writes_a_scenario_that_validates(tmp_path):
+    res = run_cli("new", "--lattice", "square", "--nx", "10", "--ny", "10", "--spacing", "0.3")
+    assert res.returncode == 0, res.stderr
+    doc = json.loads(res.stdout)
+    assert doc["geometry"] == {"lattice": "square", "nx": 10, "ny": 10, "spacing": 0.3}
+    path = tmp_path / "my.json"
+    path.write_text(res.stdout)
+    val = run_cli("validate", str(path))
+    assert val.returncode == 0 and "100 emitters" in val.stdout
+
+
+@pytest.mark.parametrize("args, words", [
+    pytest.param(["new", "--lattice", "square", "--nx", "0", "--ny", "2", "--spacing", "0.3"],
+                 "--nx: 0 is out of range; allowed 1 to 10000", id="range"),
+    pytest.param(["new", "--lattice", "square", "--nx", "3", "--spacing", "0.3"],
+                 "--ny is required for --lattice square", id="missing"),
+    pytest.param(["new", "--lattice", "ring", "--n", "5", "--spacing", "0.3", "--nx", "2"],
+                 "does not belong", id="foreign"),
+    pytest.param(["new", "--lattice", "chain", "--n", "5", "--spacing", "0.3", "--dipole", "q"],
+                 "--dipole: 'q' is not allowed", id="dipole"),
+    pytest.param(["new", "--lattice", "chain", "--n", "5", "--spacing", "0.3", "--na", "2"],
+                 "--na: 2.0 is out of range", id="na"),
+    pytest.param(["new", "--lattice", "chain", "--n", "5", "--spacing", "0.3",
+                  "--wavelength-nm", "780"], "go together", id="half-transition"),
+    pytest.param(["new", "--lattice", "pentagon"], "invalid choice", id="argparse"),
+    pytest.param(["solve", "does-not-exist.json"], "cannot read", id="no-file"),
+])
+def test_bad_input_exits_2_with_a_message(args, words):
+    res = run_cli(*args)
+    assert res.returncode == 2
+    assert words in res.stderr
+    assert "Traceback" not in res.stderr
+
+
+def test_bad_scenario_file_exits_2_naming_the_field(tmp_path, capsys):
+    doc = json.loads((SCENARIOS[0]).read_text())
+    doc["geometry"] = {"lattice": "chain", "n": 4, "spacing": 2000}
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps(doc))
+    assert main(["solve", str(bad), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "geometry.spacing: 2000 is out of range; allowed 0.001 to 1000" in err
+
+
+def test_console_script_is_declared():
+    """pyproject declares the `choir` entry point (setuptools convention)."""
+    text = (ROOT / "pyproject.toml").read_text()
+    assert 'choir = "app.cli:main"' in text

@@ -58,7 +58,8 @@ def greens_tensor(r_vec: np.ndarray) -> np.ndarray:
     r = np.linalg.norm(r_vec, axis=-1)
     if np.any(r == 0):
         raise ValueError("greens_tensor: r = 0 is a singular point of the free-space Green's function")
-    e, a, b = _radial_factors(r)
+    # asarray: for a single (3,) displacement the factors are Python scalars
+    e, a, b = (np.asarray(f) for f in _radial_factors(r))
     rhat = r_vec / r[..., None]
     pref = K0 * e / (4.0 * np.pi)
     outer = rhat[..., :, None] * rhat[..., None, :]
@@ -101,8 +102,13 @@ def _axis_steps(x: np.ndarray) -> tuple[np.ndarray, float] | None:
     span = x.max() - lo
     if span <= 1e-12:
         return np.zeros(x.shape, dtype=np.int64), 1.0
-    u = np.unique(np.round(x - lo, 10))
-    step = np.diff(u).min()
+    # smallest gap between distinct coordinates (gaps below 1e-9·span are
+    # round-off), then the step that fits a whole number of times into the span:
+    # rounding to fixed decimals instead fails at small spacings (k·1e-10 error)
+    # and at large coordinates (round-off straddling a rounding boundary)
+    gaps = np.diff(np.sort(x))
+    step = gaps[gaps > 1e-9 * span].min()
+    step = span / np.round(span / step)
     k = (x - lo) / step
     kr = np.round(k)
     if not np.allclose(k, kr, rtol=0.0, atol=1e-7) or kr.max() > 1e6:

@@ -161,7 +161,9 @@ def disk(radius: float, spacing: float, dipole: DipoleLike = "x", *,
     a = _length("spacing", spacing)
     if lattice not in ("square", "triangular"):
         raise ValueError(f"lattice: {lattice!r} is not allowed; allowed: square, triangular")
-    m = int(np.ceil(radius / a)) + 2
+    # index range: a triangular site at (a(i + j/2), a√3 j/2) inside the disk can
+    # have |i| or |j| up to 2R/(√3 a), more than R/a
+    m = int(np.ceil(2.0 * radius / (np.sqrt(3.0) * a))) + 2
     if (2 * m + 1) ** 2 > 16 * MAX_EMITTERS:
         raise ValueError(f"radius: {radius} λ0 with spacing {a} λ0 gives too many emitters; "
                          f"the limit is {MAX_EMITTERS}")

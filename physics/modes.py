@@ -87,10 +87,12 @@ class Modes:
         K. Petermann, IEEE J. Quantum Electron. 15, 566 (1979);
         A. E. Siegman, Phys. Rev. A 39, 1253 (1989).
         """
-        ll = np.sum(np.abs(self.left_vectors) ** 2, axis=0)
-        rr = np.sum(np.abs(self.vectors) ** 2, axis=0)
-        lr = np.abs(np.sum(self.left_vectors.conj() * self.vectors, axis=0)) ** 2
-        return ll * rr / lr
+        # near an exceptional point the left vectors are huge: K overflows to inf
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            ll = np.sum(np.abs(self.left_vectors) ** 2, axis=0)
+            rr = np.sum(np.abs(self.vectors) ** 2, axis=0)
+            lr = np.abs(np.sum(self.left_vectors.conj() * self.vectors, axis=0)) ** 2
+            return ll * rr / lr
 
     def expand(self, amplitudes: np.ndarray) -> np.ndarray:
         """Coefficients a_m with c = Σ_m a_m c_m, using the left eigenvectors."""
@@ -136,9 +138,17 @@ def modes_from_matrix(H: np.ndarray) -> Modes:
     order = np.lexsort((w.real, -w.imag))
     w, vr, vl = w[order], vr[:, order], vl[:, order]
     vr = vr / np.linalg.norm(vr, axis=0)
-    overlap = np.sum(vl.conj() * vr, axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        vl = vl / overlap.conj()
+    # Left vectors as the rows of V⁻¹, so that l_m† c_n = δ_mn holds by
+    # construction.  Scaling each left vector by its own overlap is not enough:
+    # inside a degenerate eigenspace (rings, square arrays, ...) LAPACK returns an
+    # arbitrary basis, and conj(c_m) or the separately computed left vectors are
+    # then not paired with the right vectors (l_m† c_n ≠ 0 for m ≠ n).
+    try:
+        vl = np.linalg.inv(vr).conj().T
+    except np.linalg.LinAlgError:  # exactly singular: defective, warned below
+        overlap = np.sum(vl.conj() * vr, axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            vl = vl / overlap.conj()
     modes = Modes(eigenvalues=w, vectors=vr, left_vectors=vl)
     worst = np.max(np.where(np.isfinite(modes.petermann), modes.petermann, np.inf))
     if worst > PETERMANN_WARN:

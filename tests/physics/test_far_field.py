@@ -1,0 +1,237 @@
+"""Tests for physics/far_field.py: emitted power per solid angle, in total and into a lens."""
+from __future__ import annotations
+
+from typing import Callable
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from physics import (Emitters, FreeSpace, collected_fraction, coupling_matrix, far_field_power,
+                     lattices, solve_modes, total_power)
+from physics.far_field import angular_order, cap_grid, directions_from_angles, sphere_grid
+from physics.hamiltonian import decay_operator
+
+# The quadrature is exact for the band-limited far-field pattern up to its order
+# (module docstring of far_field.py); what remains is round-off, ~1e-14 relative.
+# For the single-dipole patterns, which are polynomials of degree ≤ 2 in cos θ
+# and sin θ e^{±iφ}, Gauss–Legendre × uniform-φ quadrature is exact as well.
+QUAD_TOL = 1e-12
+# Far field of a mode against its decay rate, both sides from separate
+# computations (quadrature; eigen-decomposition): the brief asks for 1e-10.
+IDENTITY_TOL = 1e-10
+
+PREF = 3.0 / (8.0 * np.pi)  # dP/dΩ of one dipole = (3/8π)(1 − |n̂·d|²) Γ0/sr
+
+
+def _random_directions(n: int, seed: int = 0) -> np.ndarray:
+    v = np.random.default_rng(seed).standard_normal((n, 3))
+    return v / np.linalg.norm(v, axis=1, keepdims=True)
+
+
+# ---------------------------------------------------------------------------
+# a single dipole
+
+
+@pytest.mark.parametrize("dipole", [pytest.param(k, id=k) for k in ("x", "y", "z", "sigma+")])
+def test_single_dipole_pattern(dipole: str) -> None:
+    # dP/dΩ = (3/8π) sin²(angle to the dipole) for a linear dipole (Jackson, Classical
+    # Electrodynamics, 3rd ed., Sec. 9.2); for complex d it is (3/8π)(1 − |n̂·d|²)
+    # (the same algebra with |·|²).  A position off the origin only adds a phase.
+    em = Emitters([[0.3, -0.2, 0.7]], dipole)
+    n = _random_directions(200)
+    d = em.dipoles[0]
+    expected = PREF * (1.0 - np.abs(n @ d) ** 2)
+    np.testing.assert_allclose(far_field_power(em, np.array([1.0]), n), expected,
+                               rtol=0, atol=1e-15)
+
+
+def test_z_dipole_pattern_is_sin_squared_theta() -> None:
+    em = Emitters([[0.0, 0.0, 0.0]], "z")
+    theta = np.linspace(0.0, np.pi, 19)
+    phi = np.linspace(0.0, 2 * np.pi, 19)
+    out = far_field_power(em, np.array([1.0]), directions_from_angles(theta, phi))
+    # Jackson, Classical Electrodynamics, 3rd ed., Sec. 9.2: (3/8π) sin²θ per Γ0
+    np.testing.assert_allclose(out, PREF * np.sin(theta) ** 2, rtol=0, atol=1e-15)
+
+
+@pytest.mark.parametrize(
+    "dipole",
+    [pytest.param("z", id="z"), pytest.param("sigma-", id="sigma-"),
+     pytest.param((0.3, 1j, -0.2 + 0.5j), id="elliptic")],
+)
+def test_single_dipole_total_power_is_gamma0(dipole) -> None:
+    # (3/8π)·∫ sin² dΩ = (3/8π)(8π/3) = 1: a lone excited emitter radiates Γ0
+    # (Jackson, Classical Electrodynamics, 3rd ed., Sec. 9.2)
+    em = Emitters([[1.0, 2.0, 3.0]], dipole)
+    assert total_power(em, np.array([1.0])) == pytest.approx(1.0, abs=QUAD_TOL)
+    assert total_power(em, np.array([0.6j])) == pytest.approx(0.36, abs=QUAD_TOL)
+
+
+def test_far_field_power_normalises_directions_and_checks_shapes() -> None:
+    em = Emitters([[0.0, 0.0, 0.0]], "z")
+    out = far_field_power(em, np.array([1.0]), np.array([[5.0, 0.0, 0.0], [0.0, 0.0, 2.0]]))
+    np.testing.assert_allclose(out, [PREF, 0.0], rtol=0, atol=1e-16)
+    with pytest.raises(ValueError, match=r"amplitudes: expected shape \(1,\)"):
+        far_field_power(em, np.array([1.0, 0.0]), np.array([[0.0, 0.0, 1.0]]))
+    with pytest.raises(ValueError, match=r"directions: expected shape \(M, 3\)"):
+        far_field_power(em, np.array([1.0]), np.array([[0.0, 1.0]]))
+
+
+# ---------------------------------------------------------------------------
+# far field of a mode = its decay rate
+
+
+def _random_cluster() -> Emitters:
+    rng = np.random.default_rng(2)
+    pos = rng.uniform(-0.8, 0.8, (14, 3))
+    return Emitters(pos, "y")
+
+
+def _complex_cluster() -> Emitters:
+    rng = np.random.default_rng(4)
+    pos = rng.uniform(-0.6, 0.6, (10, 3))
+    dip = rng.standard_normal((10, 3)) + 1j * rng.standard_normal((10, 3))
+    return Emitters(pos, dip)
+
+
+GEOMETRIES = [
+    pytest.param(lambda: lattices.chain(12, 0.3, "x"), id="chain-x"),
+    pytest.param(lambda: lattices.chain(10, 0.6, "z", axis="y"), id="chain-sparse"),
+    pytest.param(lambda: lattices.square(5, 5, 0.3, "sigma+"), id="square-sigma+"),
+    pytest.param(lambda: lattices.triangular(5, 4, 0.7, "z"), id="triangular-z"),
+    pytest.param(lambda: lattices.ring(9, 0.2, "tangential"), id="ring-tangential"),
+    pytest.param(lambda: lattices.cubic(2, 2, 3, 0.4, (1, 1, 0)), id="cubic"),
+    pytest.param(_random_cluster, id="random-cluster"),
+    pytest.param(_complex_cluster, id="complex-dipoles"),
+]
+
+
+@pytest.mark.parametrize("build", GEOMETRIES)
+def test_far_field_of_each_mode_integrates_to_its_decay_rate(build: Callable[[], Emitters]) -> None:
+    # ∫ dP/dΩ dΩ = c†Γc = Γ_m for a unit-norm eigenvector (exact identity, DESIGN.md)
+    em = build()
+    modes = solve_modes(em, FreeSpace())
+    grid = sphere_grid(angular_order(em))
+    dirs = grid.directions
+    powers = np.array([np.sum(grid.weights * far_field_power(em, modes.vectors[:, m], dirs))
+                       for m in range(em.n)])
+    np.testing.assert_allclose(powers, modes.decay_rates, rtol=0, atol=IDENTITY_TOL)
+    # the public helper agrees on the brightest mode
+    assert total_power(em, modes.vectors[:, -1]) == pytest.approx(modes.decay_rates[-1],
+                                                                  abs=IDENTITY_TOL)
+
+
+@pytest.mark.parametrize("build", GEOMETRIES)
+def test_far_field_of_any_state_is_its_decay_expectation(build: Callable[[], Emitters]) -> None:
+    # ∫ dP/dΩ dΩ = c†Γc for any amplitudes c, Γ = i(H − H†) (exact identity, far_field.py)
+    em = build()
+    gamma = decay_operator(coupling_matrix(em, FreeSpace()))
+    rng = np.random.default_rng(9)
+    for _ in range(3):
+        c = rng.standard_normal(em.n) + 1j * rng.standard_normal(em.n)
+        expected = np.real(c.conj() @ gamma @ c)
+        assert total_power(em, c) == pytest.approx(expected, abs=IDENTITY_TOL * np.vdot(c, c).real)
+
+
+def test_two_emitter_symmetric_state_radiates_one_plus_gamma12() -> None:
+    # (|1⟩ + |2⟩)/√2 radiates Γ0 + Γ12 (Lehmberg, Phys. Rev. A 2, 883 (1970));
+    # Γ12 for α = 90°, k0r = 2π·0.25 = π/2 from the closed form (from memory):
+    # (3/2)[sin x/x + cos x/x² − sin x/x³] = (3/2)(2/π − 8/π³)
+    em = Emitters([[0.0, 0.0, 0.0], [0.25, 0.0, 0.0]], "z")
+    gamma12 = 1.5 * (2 / np.pi - 8 / np.pi**3)
+    c = np.array([1.0, 1.0]) / np.sqrt(2)
+    assert total_power(em, c) == pytest.approx(1.0 + gamma12, abs=IDENTITY_TOL)
+    assert total_power(em, c * [1, -1]) == pytest.approx(1.0 - gamma12, abs=IDENTITY_TOL)
+
+
+# ---------------------------------------------------------------------------
+# collected fraction
+
+
+def _cap_fraction_z(mu0: float) -> float:
+    # z dipole: (3/8π)·2π ∫_{μ0}^{1} (1 − μ²) dμ = (1/4)(1 − μ0)²(2 + μ0)
+    # (elementary integration, no source)
+    return 0.25 * (1 - mu0) ** 2 * (2 + mu0)
+
+
+def _cap_fraction_x(mu0: float) -> float:
+    # x dipole: 1 − sin²θ cos²φ; the φ average gives (3/8)∫_{μ0}^{1} (1 + μ²) dμ
+    # = (3/8)(1 − μ0) + (1/8)(1 − μ0³) (elementary integration, no source)
+    return 0.375 * (1 - mu0) + 0.125 * (1 - mu0**3)
+
+
+NA_VALUES = [pytest.param(na, id=f"NA{na:g}") for na in (0.1, 0.5, 0.8, 0.95, 1.0)]
+
+
+@pytest.mark.parametrize("na", NA_VALUES)
+@pytest.mark.parametrize(
+    ("dipole", "fraction"),
+    [pytest.param("z", _cap_fraction_z, id="z"), pytest.param("x", _cap_fraction_x, id="x")],
+)
+def test_collected_fraction_of_a_single_dipole(dipole: str, fraction, na: float) -> None:
+    em = Emitters([[0.0, 0.0, 0.0]], dipole)
+    mu0 = np.sqrt(1.0 - na**2)  # cos of the half-angle arcsin(NA)
+    for axis in ("+z", "-z"):
+        assert collected_fraction(em, np.array([1.0]), na, axis) == pytest.approx(
+            fraction(mu0), abs=QUAD_TOL)
+
+
+@pytest.mark.parametrize("dipole", [pytest.param(k, id=k) for k in ("x", "z", "sigma+")])
+def test_full_aperture_collects_half_of_one_dipole(dipole: str) -> None:
+    # a dipole radiates equally into both half-spaces (inversion symmetry of |E|²)
+    em = Emitters([[0.2, 0.1, -0.4]], dipole)
+    assert collected_fraction(em, np.array([1.0]), 1.0) == pytest.approx(0.5, abs=QUAD_TOL)
+
+
+@pytest.mark.parametrize(
+    "build",
+    [
+        pytest.param(lambda: lattices.square(6, 6, 0.4, "x"), id="square-x"),
+        pytest.param(lambda: lattices.triangular(5, 5, 0.3, "z"), id="triangular-z"),
+        pytest.param(lambda: lattices.honeycomb(3, 3, 0.3, "sigma+"), id="honeycomb-sigma+"),
+        pytest.param(lambda: lattices.ring(10, 0.3, "radial"), id="ring-radial"),
+    ],
+)
+@given(na=st.floats(0.05, 1.0), seed=st.integers(0, 2**32 - 1))
+@settings(max_examples=10, deadline=None)
+def test_planar_array_emits_equally_up_and_down(build, na: float, seed: int) -> None:
+    # z → −z mirror maps a z = 0 array with in-plane (or z) dipoles onto itself, so
+    # |E(θ, φ)|² = |E(π − θ, φ)|² for any amplitudes (symmetry, no source)
+    em = build()
+    rng = np.random.default_rng(seed)
+    c = rng.standard_normal(em.n) + 1j * rng.standard_normal(em.n)
+    up = collected_fraction(em, c, na, "+z")
+    down = collected_fraction(em, c, na, "-z")
+    assert up == pytest.approx(down, abs=QUAD_TOL)
+    assert 0.0 <= up <= 0.5 + QUAD_TOL
+
+
+def test_collected_fraction_is_not_mirror_symmetric_out_of_plane() -> None:
+    # control for the test above: a chain along z radiating a travelling-wave state
+    # does prefer one direction, so the ±z comparison can fail
+    em = lattices.chain(8, 0.25, "x", axis="z")
+    c = np.exp(1j * 2 * np.pi * em.positions[:, 2])  # phase matched to +z propagation
+    up = collected_fraction(em, c, 0.5, "+z")
+    down = collected_fraction(em, c, 0.5, "-z")
+    assert up > down + 0.1
+
+
+def test_collected_fraction_refuses_bad_aperture_and_axis() -> None:
+    em = Emitters([[0.0, 0.0, 0.0]], "x")
+    for na in (0.0, -0.1, 1.01):
+        with pytest.raises(ValueError, match=r"na: .* out of range"):
+            collected_fraction(em, np.array([1.0]), na)
+    with pytest.raises(ValueError, match=r"axis: '\+x'"):
+        cap_grid(10, 0.5, "+x")
+
+
+@pytest.mark.parametrize("order", [pytest.param(L, id=f"L{L}") for L in (4, 12, 40)])
+def test_sphere_grid_integrates_low_harmonics_exactly(order: int) -> None:
+    g = sphere_grid(order)
+    n = g.directions
+    assert np.sum(g.weights) == pytest.approx(4 * np.pi, rel=1e-14)
+    # ∫ z² dΩ = 4π/3 and ∫ x² y² dΩ = 4π/15 (common practice, no source)
+    assert np.sum(g.weights * n[:, 2] ** 2) == pytest.approx(4 * np.pi / 3, rel=1e-13)
+    assert np.sum(g.weights * (n[:, 0] * n[:, 1]) ** 2) == pytest.approx(4 * np.pi / 15, rel=1e-13)

@@ -7,6 +7,9 @@ from functools import cached_property
 
 import numpy as np
 import scipy.linalg
+from scipy.sparse import coo_matrix
+from scipy.sparse.csgraph import connected_components
+from scipy.spatial import cKDTree
 
 from .geometry import Emitters
 from .hamiltonian import Environment, coupling_matrix
@@ -18,6 +21,10 @@ __all__ = ["Modes", "DefectiveMatrixWarning", "solve_modes", "modes_from_matrix"
 #: defective: eigenvectors this far from orthogonal amplify round-off by about
 #: this factor, so expansions in modes lose all digits near 1e16.
 PETERMANN_WARN = 1e8
+
+#: Eigenvalues closer than this (relative to max(1, max|λ|)) are treated as one
+#: degenerate eigenspace.  Symmetric arrays split exact degeneracies by ~1e-14.
+DEGENERACY_TOL = 1e-10
 
 
 class DefectiveMatrixWarning(RuntimeWarning):
@@ -37,11 +44,24 @@ class Modes:
     left_vectors : (N, N) complex ndarray
         Column m is the left eigenvector l_m (l_m† H = λ_m l_m†), scaled so that
         l_m† c_n = δ_mn (biorthogonal pairing).
+    cluster : (N,) int ndarray
+        Label of the (numerically) degenerate eigenspace each mode belongs to;
+        right eigenvectors within one are orthonormal.
     """
 
     eigenvalues: np.ndarray
     vectors: np.ndarray
     left_vectors: np.ndarray
+    cluster: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.cluster is None:
+            object.__setattr__(self, "cluster", np.arange(self.eigenvalues.shape[0]))
+
+    @property
+    def multiplicity(self) -> np.ndarray:
+        """(N,) int: dimension of the (numerically) degenerate eigenspace of each mode."""
+        return np.bincount(self.cluster)[self.cluster]
 
     @property
     def n(self) -> int:
@@ -80,7 +100,9 @@ class Modes:
 
         1 for a normal matrix; large values mean strongly non-orthogonal modes
         (excess noise, sensitivity to perturbations); it diverges at an
-        exceptional point.
+        exceptional point.  Within a degenerate eigenspace the per-mode value
+        depends on the chosen basis, so the eigenspace average (which does not,
+        for an orthonormal right basis) is reported for each of its modes.
 
         References
         ----------
@@ -92,7 +114,9 @@ class Modes:
             ll = np.sum(np.abs(self.left_vectors) ** 2, axis=0)
             rr = np.sum(np.abs(self.vectors) ** 2, axis=0)
             lr = np.abs(np.sum(self.left_vectors.conj() * self.vectors, axis=0)) ** 2
-            return ll * rr / lr
+            k = ll * rr / lr
+            mean = np.bincount(self.cluster, weights=k) / np.bincount(self.cluster)
+        return mean[self.cluster]
 
     def expand(self, amplitudes: np.ndarray) -> np.ndarray:
         """Coefficients a_m with c = Σ_m a_m c_m, using the left eigenvectors."""
@@ -107,17 +131,25 @@ class Modes:
         return self.n - 1
 
 
-def _is_complex_symmetric(H: np.ndarray) -> bool:
-    scale = np.max(np.abs(H))
-    return bool(np.max(np.abs(H - H.T)) <= 1e-12 * scale)
+def _degenerate_clusters(w: np.ndarray, tol: float) -> np.ndarray:
+    """Label eigenvalues closer than ``tol`` (transitively) with a common cluster index."""
+    pts = np.column_stack([w.real, w.imag])
+    pairs = cKDTree(pts).query_pairs(tol, output_type="ndarray")
+    if len(pairs) == 0:
+        return np.arange(w.size)
+    n = w.size
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    return connected_components(graph, directed=False)[1]
 
 
 def modes_from_matrix(H: np.ndarray) -> Modes:
     """Diagonalise a coupling matrix and order the modes by decay rate.
 
-    For a complex-symmetric H (reciprocal environment with linear dipoles) the
-    left eigenvectors are the complex conjugates of the right ones, so only
-    right eigenvectors are computed.
+    Right eigenvectors come from LAPACK; inside each (numerically) degenerate
+    eigenspace they are orthonormalised, a canonical choice that makes the
+    figures below independent of LAPACK's arbitrary basis.  Left eigenvectors
+    are the rows of V⁻¹, so l_m† c_n = δ_mn holds by construction (scaling
+    separately computed left vectors is not enough inside degenerate spaces).
 
     Warns
     -----
@@ -130,26 +162,31 @@ def modes_from_matrix(H: np.ndarray) -> Modes:
     H = np.asarray(H, dtype=complex)
     if H.ndim != 2 or H.shape[0] != H.shape[1]:
         raise ValueError(f"coupling matrix must be square, got shape {H.shape}")
-    if _is_complex_symmetric(H):
-        w, vr = scipy.linalg.eig(H, right=True, left=False, check_finite=False)
-        vl = vr.conj()
-    else:
-        w, vl, vr = scipy.linalg.eig(H, right=True, left=True, check_finite=False)
+    w, vr = scipy.linalg.eig(H, right=True, left=False, check_finite=False)
     order = np.lexsort((w.real, -w.imag))
-    w, vr, vl = w[order], vr[:, order], vl[:, order]
+    w, vr = w[order], vr[:, order]
+    scale = max(1.0, float(np.max(np.abs(w))))
+    cluster = _degenerate_clusters(w, DEGENERACY_TOL * scale)
+    sizes = np.bincount(cluster)
+    for label in np.flatnonzero(sizes > 1):
+        idx = np.flatnonzero(cluster == label)
+        q = np.linalg.qr(vr[:, idx])[0]
+        # a true eigenspace stays one after orthonormalising; near an exceptional
+        # point the vectors are (nearly) parallel and QR would leave it
+        if np.max(np.abs(H @ q - q * w[idx])) <= 1e3 * DEGENERACY_TOL * scale:
+            vr[:, idx] = q
+        else:
+            cluster[idx] = idx + w.size  # not a usable eigenspace: no averaging
     vr = vr / np.linalg.norm(vr, axis=0)
-    # Left vectors as the rows of V⁻¹, so that l_m† c_n = δ_mn holds by
-    # construction.  Scaling each left vector by its own overlap is not enough:
-    # inside a degenerate eigenspace (rings, square arrays, ...) LAPACK returns an
-    # arbitrary basis, and conj(c_m) or the separately computed left vectors are
-    # then not paired with the right vectors (l_m† c_n ≠ 0 for m ≠ n).
     try:
         vl = np.linalg.inv(vr).conj().T
     except np.linalg.LinAlgError:  # exactly singular: defective, warned below
+        _, vl_raw, _ = scipy.linalg.eig(H, right=True, left=True, check_finite=False)
+        vl = vl_raw[:, order]
         overlap = np.sum(vl.conj() * vr, axis=0)
         with np.errstate(divide="ignore", invalid="ignore"):
             vl = vl / overlap.conj()
-    modes = Modes(eigenvalues=w, vectors=vr, left_vectors=vl)
+    modes = Modes(eigenvalues=w, vectors=vr, left_vectors=vl, cluster=cluster)
     worst = np.max(np.where(np.isfinite(modes.petermann), modes.petermann, np.inf))
     if worst > PETERMANN_WARN:
         warnings.warn(

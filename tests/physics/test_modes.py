@@ -292,3 +292,18 @@ def test_uniform_mode_of_a_square_array_approaches_the_infinite_lattice(a: float
         errors.append(abs(modes.decay_rates[m] - ref) / ref)
     assert errors[0] > errors[1]
     assert errors[1] < 1e-3
+
+
+@pytest.mark.parametrize("n", [pytest.param(8, id="N8"), pytest.param(13, id="N13")])
+def test_degenerate_normal_matrix_has_petermann_one(n: int) -> None:
+    # z dipoles on a ring: H is circulant, hence normal, with pairs of degenerate
+    # modes e^{±i m φ} (group theory of the cyclic group; common practice, no source)
+    em = lattices.ring(n, 0.3, "z")
+    H = coupling_matrix(em, FreeSpace())
+    np.testing.assert_allclose(H @ H.conj().T, H.conj().T @ H, atol=1e-12)
+    modes = modes_from_matrix(H)
+    assert modes.multiplicity.max() == 2
+    assert np.sum(modes.multiplicity == 2) == 2 * ((n - 1) // 2)
+    # K = 1 exactly for a normal matrix; 1e-10 allows round-off in V⁻¹
+    np.testing.assert_allclose(modes.petermann, 1.0, atol=1e-10)
+    np.testing.assert_allclose(H @ modes.vectors, modes.vectors * modes.eigenvalues, atol=1e-12)

@@ -5,7 +5,6 @@ Exit codes: 0 success, 2 bad input (message on stderr), 1 unexpected failure.
 from __future__ import annotations
 
 import argparse
-import csv
 import sys
 import warnings
 from pathlib import Path
@@ -14,10 +13,11 @@ from typing import Sequence
 import numpy as np
 
 from physics import scenario as scn
-from physics.far_field import collected_fraction, far_field_power, directions_from_angles
+from physics.exports import far_field_csv, spectrum_csv
+from physics.far_field import collected_fraction
 from physics.hamiltonian import coupling_matrix
 from physics.lattices import GENERATORS
-from physics.modes import DefectiveMatrixWarning, Modes, modes_from_matrix
+from physics.modes import DefectiveMatrixWarning, modes_from_matrix
 from physics.units import TRANSITIONS
 
 __all__ = ["main"]
@@ -82,39 +82,6 @@ def _dipole_text(sc: scn.Scenario) -> str:
     return "one vector per emitter"
 
 
-# ------------------------------------------------------------------ outputs
-
-def _write_spectrum(path: Path, modes: Modes, tr) -> None:
-    rates, shifts = modes.decay_rates, modes.shifts
-    with path.open("w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
-        w.writerow(["mode", "shift_gamma0", "decay_rate_gamma0", "lifetime_per_gamma0",
-                    "shift_mhz", "decay_rate_mhz", "lifetime_ns", "participation_ratio",
-                    "petermann"])
-        life = modes.lifetimes
-        for m in range(modes.n):
-            w.writerow([m, repr(float(shifts[m])), repr(float(rates[m])), repr(float(life[m])),
-                        repr(float(tr.frequency_mhz(shifts[m]))),
-                        repr(float(tr.frequency_mhz(rates[m]))),
-                        repr(float(tr.time_ns(life[m]))),
-                        repr(float(modes.participation_ratio[m])),
-                        repr(float(modes.petermann[m]))])
-
-
-def _write_far_field(path: Path, em, amplitudes, mode: int) -> None:
-    theta = np.radians(np.arange(0.0, 180.0 + 1e-9, 2.0))
-    phi = np.radians(np.arange(0.0, 360.0, 4.0))
-    TH, PH = np.meshgrid(theta, phi, indexing="ij")
-    power = far_field_power(em, amplitudes, directions_from_angles(TH.ravel(), PH.ravel()))
-    with path.open("w", newline="", encoding="utf-8") as fh:
-        fh.write(f"# far field of mode {mode}: dP/dOmega in units of Gamma0 per steradian; "
-                 f"theta from +z, phi from +x\n")
-        w = csv.writer(fh)
-        w.writerow(["theta_deg", "phi_deg", "dP_dOmega_gamma0_per_sr"])
-        for t, p, v in zip(np.degrees(TH.ravel()), np.degrees(PH.ravel()), power):
-            w.writerow([f"{t:.6g}", f"{p:.6g}", repr(float(v))])
-
-
 # ------------------------------------------------------------------ commands
 
 def _load(path: str) -> scn.Scenario:
@@ -172,12 +139,13 @@ def cmd_solve(args) -> int:
     ]
     for w in caught:
         lines.append(f"  warning: {w.message}")
-    _write_spectrum(out / "spectrum.csv", modes, tr)
+    (out / "spectrum.csv").write_text(spectrum_csv(modes, tr), encoding="utf-8")
     np.savez_compressed(
         out / "modes.npz", eigenvalues=modes.eigenvalues, vectors=modes.vectors,
         left_vectors=modes.left_vectors, positions_lambda0=em.positions, dipoles=em.dipoles,
         wavelength_nm=tr.wavelength_nm, linewidth_mhz=tr.linewidth_mhz)
-    _write_far_field(out / "far_field.csv", em, c, sel)
+    (out / "far_field.csv").write_text(far_field_csv(em, c, label=f"of mode {sel}"),
+                                      encoding="utf-8")
     lines.append(f"  wrote {out / 'spectrum.csv'}, {out / 'modes.npz'}, {out / 'far_field.csv'}")
     print("\n".join(lines))
     return 0
@@ -233,6 +201,21 @@ def cmd_new(args) -> int:
     return 0
 
 
+def cmd_serve(args) -> int:
+    sc = _load(args.scenario) if args.scenario else None
+    if not 1 <= args.port <= 65535:
+        raise UsageError(f"--port: {args.port} is out of range; allowed 1 to 65535")
+    from app.explorer import serve  # panel is imported only for this command
+
+    if args.address not in ("127.0.0.1", "localhost", "::1"):
+        print(f"choir: serving on {args.address}: anyone who can reach this address can use "
+              f"the explorer (no login). Restrict access with a firewall or --allow-origin.",
+              file=sys.stderr)
+    serve(sc, port=args.port, address=args.address, show=args.show,
+          allow_origin=args.allow_origin)
+    return 0
+
+
 # ------------------------------------------------------------------ parser
 
 class _Parser(argparse.ArgumentParser):
@@ -277,6 +260,16 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--mode", type=int, default=0, help="selected mode (0 = most subradiant)")
     n.add_argument("--name", help="scenario name")
     n.set_defaults(func=cmd_new)
+
+    e = sub.add_parser("serve", help="open the explorer in the browser (localhost by default)")
+    e.add_argument("scenario", nargs="?", help="scenario file to start from (.json)")
+    e.add_argument("--port", type=int, default=5006, help="TCP port (default 5006)")
+    e.add_argument("--address", default="127.0.0.1",
+                   help="address to listen on (default 127.0.0.1: this machine only)")
+    e.add_argument("--show", action="store_true", help="open a browser tab")
+    e.add_argument("--allow-origin", dest="allow_origin", action="append",
+                   help="host:port allowed to open the page's websocket (repeatable)")
+    e.set_defaults(func=cmd_serve)
     return p
 
 

@@ -31,6 +31,7 @@ __all__ = [
     "angular_order",
     "AngularGrid",
     "directions_from_angles",
+    "hemisphere_directions",
 ]
 
 _PREF = 3.0 / (8.0 * np.pi)
@@ -150,8 +151,24 @@ def total_power(em: Emitters, amplitudes: np.ndarray) -> float:
     return float(np.sum(g.weights * far_field_power(em, amplitudes, g.directions)))
 
 
+def hemisphere_directions(ux: np.ndarray, uy: np.ndarray, side: str = "+z") -> np.ndarray:
+    """Directions (..., 3) from direction cosines (u_x, u_y) with u_x² + u_y² ≤ 1.
+
+    This is the orthographic ("back focal plane") view of a hemisphere: a lens
+    of numerical aperture NA along ±z accepts exactly the disc u_x² + u_y² ≤ NA².
+    ``side`` "+z" gives n_z ≥ 0, "-z" gives n_z ≤ 0.
+    """
+    ux, uy = np.asarray(ux, float), np.asarray(uy, float)
+    nz = np.sqrt(np.clip(1.0 - ux * ux - uy * uy, 0.0, None))
+    if side == "-z":
+        nz = -nz
+    elif side != "+z":
+        raise ValueError(f"side: {side!r} is not allowed; allowed: +z, -z")
+    return np.stack([ux, uy, nz], axis=-1)
+
+
 def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
-                       axis: str = "+z") -> float:
+                       axis: str = "+z", *, total: float | None = None) -> float:
     """Fraction of the emitted power inside a lens of numerical aperture ``na``.
 
     The lens (in vacuum) looks along ``axis`` ("+z" or "−z" written "-z") and
@@ -161,6 +178,9 @@ def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
     ----------
     na : float
         Numerical aperture, 0 < NA ≤ 1.
+    total : float, optional
+        Total emitted power [Γ0] if already known (for a unit-norm eigenvector
+        in free space, its decay rate); otherwise computed by quadrature.
     """
     na = float(na)
     if not 0.0 < na <= 1.0:
@@ -168,7 +188,8 @@ def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
     order = angular_order(em)
     cap = cap_grid(order, np.arcsin(na), axis)
     inside = float(np.sum(cap.weights * far_field_power(em, amplitudes, cap.directions)))
-    total = total_power(em, amplitudes)
+    if total is None:
+        total = total_power(em, amplitudes)
     if total <= 0.0:
         return float("nan")
     return inside / total

@@ -18,6 +18,7 @@ __all__ = [
     "dipole_vector",
     "polar_dipole",
     "MIN_DISTANCE",
+    "nearest_neighbour_distance",
 ]
 
 #: Smallest separation between two emitters [λ0].  Below it the near-field
@@ -183,3 +184,13 @@ class Emitters:
         """Rotate positions and dipoles by a 3×3 rotation, then translate [λ0]."""
         R = np.eye(3) if rotation is None else np.asarray(rotation, dtype=float)
         return Emitters(self.positions @ R.T + np.asarray(shift, float), self.dipoles @ R.T)
+
+
+def nearest_neighbour_distance(em: Emitters) -> float:
+    """Smallest distance between two emitters [λ0] (inf for a single emitter)."""
+    if em.n < 2:
+        return float("inf")
+    from scipy.spatial import cKDTree
+
+    dist, _ = cKDTree(em.positions).query(em.positions, k=2)
+    return float(dist[:, 1].min())

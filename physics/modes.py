@@ -15,7 +15,22 @@ from .geometry import Emitters
 from .hamiltonian import Environment, coupling_matrix
 
 __all__ = ["Modes", "DefectiveMatrixWarning", "solve_modes", "modes_from_matrix",
-           "PETERMANN_WARN"]
+           "PETERMANN_WARN", "radiance_label", "SUBRADIANT_BELOW", "SUPERRADIANT_ABOVE"]
+
+#: Plain-language tags of a decay rate Γ [Γ0]: below SUBRADIANT_BELOW it is
+#: "subradiant", above SUPERRADIANT_ABOVE "superradiant", in between "near
+#: single-emitter" (a convention of Choir's, not a standard: ±20 % of Γ0).
+SUBRADIANT_BELOW = 0.8
+SUPERRADIANT_ABOVE = 1.2
+
+
+def radiance_label(rate: float) -> str:
+    """"subradiant", "near single-emitter" or "superradiant" for a decay rate [Γ0]."""
+    if rate < SUBRADIANT_BELOW:
+        return "subradiant"
+    if rate > SUPERRADIANT_ABOVE:
+        return "superradiant"
+    return "near single-emitter"
 
 #: Petermann factor above which the eigenbasis is reported as numerically
 #: defective: eigenvectors this far from orthogonal amplify round-off by about

@@ -1,0 +1,390 @@
+"""The Choir explorer: layout, controls, sharing, and the server/notebook entry points.
+
+``build_explorer(scenario)`` makes one session's page (state + views); it is
+what ``choir serve`` serves per browser session, what ``panel serve
+app/serve_app.py`` serves, and what ``explorer()`` shows inline in a notebook.
+"""
+from __future__ import annotations
+
+import io
+import os
+import re
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+from typing import Any, Callable
+
+import panel as pn
+
+from physics import scenario as scn
+from physics.exports import spectrum_csv
+
+from .state import NEAR_FIELD_WARN, ExplorerState
+from .views import ArrayView, FarFieldView, SpectrumView, mode_card_html
+
+__all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
+
+MODEL_NOTE = (
+    "**Model.** One excitation shared by the emitters (weak excitation, linear optics); "
+    "Markov approximation (no retardation across the array, no strong coupling); point-like "
+    "two-level emitters at rest; free space. Shifts exclude the single-emitter Lamb shift. "
+    "Results outside these assumptions — saturation, multi-level atoms, emitters closer than "
+    f"about {NEAR_FIELD_WARN} λ0, motion — need a different model."
+)
+
+# Compute threads shared by all sessions of one server.  Each BLAS call uses one
+# thread (set in `serve`), so two sessions can solve at once on two cores.
+_EXECUTOR: ThreadPoolExecutor | None = None
+
+
+def _executor() -> ThreadPoolExecutor:
+    global _EXECUTOR
+    if _EXECUTOR is None:
+        _EXECUTOR = ThreadPoolExecutor(max_workers=2, thread_name_prefix="choir-solve")
+    return _EXECUTOR
+
+
+class ServerRunner:
+    """Runs jobs in the thread pool; hands results back on the session's event loop."""
+
+    def __init__(self, doc) -> None:
+        self.doc = doc
+
+    def submit(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
+        def finished(fut):
+            try:
+                value = fut.result()
+            except Exception as exc:  # reported to the user by `done`
+                value = exc
+            self.doc.add_next_tick_callback(lambda: done(value))
+
+        _executor().submit(job).add_done_callback(finished)
+
+
+# ---------------------------------------------------------------- controls
+
+_VISIBLE = {
+    "chain": {"n", "spacing", "chain_axis"},
+    "ring": {"n", "spacing"},
+    "square": {"nx", "ny", "spacing"},
+    "triangular": {"nx", "ny", "spacing"},
+    "honeycomb": {"nx", "ny", "spacing"},
+    "kagome": {"nx", "ny", "spacing"},
+    "rectangular": {"nx", "ny", "spacing", "spacing_y"},
+    "disk": {"radius", "spacing", "disk_lattice"},
+    "cubic": {"nx", "ny", "nz", "spacing"},
+    "explicit": set(),
+}
+
+_LABELS = {
+    "lattice": "Array type", "n": "Emitters N", "nx": "Along x (nx)", "ny": "Along y (ny)",
+    "nz": "Layers (nz)", "spacing": "Spacing a [λ0]", "spacing_y": "Spacing along y [λ0]",
+    "radius": "Disk radius [λ0]", "disk_lattice": "Disk lattice", "chain_axis": "Chain axis",
+    "dipole": "Dipole orientation", "theta_deg": "Dipole θ from +z [deg]",
+    "phi_deg": "Dipole φ from +x [deg]", "environment": "Environment",
+    "transition": "Transition", "wavelength_nm": "Custom λ0 [nm]",
+    "linewidth_mhz": "Custom Γ0/2π [MHz]", "color_by": "Colour modes by",
+    "lens_na": "Lens NA", "lens_axis": "Lens looks along", "projection": "Array view plane",
+}
+
+
+def _slider(state: ExplorerState, name: str, integer: bool = False):
+    """A slider that recomputes while dragging for small arrays, on release for large ones."""
+    p = state.param[name]
+    cls = pn.widgets.IntSlider if integer else pn.widgets.FloatSlider
+    kw = {} if integer else {"step": p.step or 0.01}
+    w = cls(name=_LABELS[name], start=p.bounds[0], end=p.bounds[1], value=getattr(state, name),
+            sizing_mode="stretch_width", **kw)
+
+    def live(event):
+        if state.live_drag():
+            setattr(state, name, event.new)
+
+    def final(event):
+        setattr(state, name, event.new)
+
+    w.param.watch(live, "value")
+    w.param.watch(final, "value_throttled")
+    state.param.watch(lambda e: setattr(w, "value", e.new), name)
+    return w
+
+
+def _select(state: ExplorerState, name: str, widget=pn.widgets.Select, **kw):
+    return widget.from_param(state.param[name], name=_LABELS.get(name, name),
+                             sizing_mode="stretch_width", **kw)
+
+
+def _slug(text: str) -> str:
+    s = re.sub(r"[^A-Za-z0-9]+", "-", text).strip("-").lower()
+    return s[:60] or "choir-scenario"
+
+
+def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
+    sliders = {name: _slider(state, name, integer=name in ("n", "nx", "ny", "nz"))
+               for name in ("n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
+                            "theta_deg", "phi_deg", "lens_na")}
+    lattice = _select(state, "lattice")
+    disk_lattice = _select(state, "disk_lattice")
+    chain_axis = _select(state, "chain_axis", pn.widgets.RadioButtonGroup)
+    nm = pn.pane.HTML(sizing_mode="stretch_width", styles={"font-size": "12px", "color": "#444"})
+    geometry_widgets = {"n": sliders["n"], "nx": sliders["nx"], "ny": sliders["ny"],
+                        "nz": sliders["nz"], "spacing": sliders["spacing"],
+                        "spacing_y": sliders["spacing_y"], "radius": sliders["radius"],
+                        "disk_lattice": disk_lattice, "chain_axis": chain_axis}
+    explicit_note = pn.pane.HTML(
+        "<i>Explicit positions: edit them in the array view (drawing tool).</i>",
+        styles={"font-size": "12px"})
+
+    def show_geometry(*_):
+        keep = _VISIBLE[state.lattice]
+        for key, w in geometry_widgets.items():
+            w.visible = key in keep
+        explicit_note.visible = state.lattice == "explicit"
+        tr = state.transition_obj
+        if state.result is not None:
+            em = state.result.emitters
+            nn = _nn_text(state)
+            nm.object = (f"a = {state.spacing:.3f} λ0 = {tr.length_nm(state.spacing):.1f} nm "
+                         f"· N = {em.n} {nn}")
+
+    state.param.watch(show_geometry, ["lattice", "result", "spacing", "transition",
+                                      "wavelength_nm"])
+    show_geometry()
+
+    dipole = _select(state, "dipole")
+    angles = pn.Column(sliders["theta_deg"], sliders["phi_deg"], sizing_mode="stretch_width")
+
+    def show_angles(*_):
+        angles.visible = state.dipole == "polar angles"
+
+    state.param.watch(show_angles, "dipole")
+    show_angles()
+    environment = _select(state, "environment")
+    transition = _select(state, "transition")
+    wl = pn.widgets.FloatInput.from_param(state.param.wavelength_nm, name=_LABELS["wavelength_nm"],
+                                          sizing_mode="stretch_width")
+    lw = pn.widgets.FloatInput.from_param(state.param.linewidth_mhz, name=_LABELS["linewidth_mhz"],
+                                          sizing_mode="stretch_width")
+    custom = pn.Row(wl, lw, sizing_mode="stretch_width")
+    tr_info = pn.pane.HTML(styles={"font-size": "12px", "color": "#444"})
+
+    def show_transition(*_):
+        custom.visible = state.transition == "custom"
+        tr = state.transition_obj
+        tr_info.object = (f"λ0 = {tr.wavelength_nm:.6g} nm, Γ0/2π = {tr.linewidth_mhz:.5g} MHz, "
+                          f"1/Γ0 = {tr.lifetime_ns:.4g} ns")
+
+    state.param.watch(show_transition, ["transition", "wavelength_nm", "linewidth_mhz"])
+    show_transition()
+    units = pn.widgets.RadioButtonGroup.from_param(
+        state.param.units, name="Units", sizing_mode="stretch_width")
+    units_note = pn.pane.HTML("<span style='font-size:11px;color:#555'>lab: nm, MHz (Γ/2π, "
+                              "ω/2π), ns · internal: λ0, Γ0, 1/Γ0</span>")
+    color_by = _select(state, "color_by")
+    projection = _select(state, "projection", pn.widgets.RadioButtonGroup)
+
+    mode = pn.widgets.IntInput(name="Selected mode (↑/↓ to step; 0 = most subradiant)",
+                               value=state.selected_mode, start=0, step=1,
+                               sizing_mode="stretch_width")
+    mode.param.watch(lambda e: setattr(state, "selected_mode", int(e.new)), "value")
+
+    def mode_from_state(*_):
+        if state.result is not None:
+            mode.end = state.result.modes.n - 1
+        mode.value = state.selected_mode
+
+    state.param.watch(mode_from_state, ["selected_mode", "result"])
+    prev_b = pn.widgets.Button(name="◀ less radiant", sizing_mode="stretch_width")
+    next_b = pn.widgets.Button(name="more radiant ▶", sizing_mode="stretch_width")
+    prev_b.on_click(lambda e: _step(state, -1))
+    next_b.on_click(lambda e: _step(state, +1))
+    lens_axis = _select(state, "lens_axis", pn.widgets.RadioButtonGroup)
+
+    download = pn.widgets.FileDownload(
+        callback=lambda: io.StringIO(scn.dumps(state.scenario_for_export())),
+        filename="choir-scenario.json", label="Download scenario (.json)",
+        button_type="primary", sizing_mode="stretch_width")
+    state.param.watch(lambda e: setattr(download, "filename", _slug(e.new) + ".json"),
+                      "scenario_name")
+    spectrum = pn.widgets.FileDownload(
+        callback=lambda: io.StringIO(spectrum_csv(state.result.modes, state.transition_obj)
+                                     if state.result is not None else ""),
+        filename="choir-spectrum.csv", label="Download spectrum (.csv)",
+        sizing_mode="stretch_width")
+    upload = pn.widgets.FileInput(accept=".json", multiple=False, sizing_mode="stretch_width",
+                                  name="Open scenario")
+
+    def load_upload(event):
+        if not event.new:
+            return
+        try:
+            sc = scn.loads(event.new)
+        except scn.ScenarioError as exc:
+            state.message = f"File not opened — {exc}"
+            return
+        state.apply_scenario(sc)
+
+    upload.param.watch(load_upload, "value")
+    undo = pn.widgets.Button(name="Undo last edit", sizing_mode="stretch_width", disabled=True)
+    undo.on_click(lambda e: state.undo())
+    state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
+
+    def card(title, *items):
+        return pn.Card(*items, title=title, sizing_mode="stretch_width", collapsed=False,
+                       margin=(4, 4))
+
+    column = pn.Column(
+        card("Array", lattice, *geometry_widgets.values(), explicit_note, nm, undo),
+        card("Dipoles and environment", dipole, angles, environment),
+        card("Transition and units", transition, custom, tr_info, units, units_note),
+        card("Mode and lens", mode, pn.Row(prev_b, next_b, sizing_mode="stretch_width"),
+             sliders["lens_na"], lens_axis, color_by, projection),
+        card("Share", download, pn.pane.HTML("<span style='font-size:12px'>Open a scenario "
+                                             "file (.json):</span>"), upload, spectrum,
+             pn.pane.HTML("<span style='font-size:11px;color:#555'>Each plot saves as PNG "
+                          "from its toolbar. The page address carries the array settings."
+                          "</span>")),
+        width=330, sizing_mode="stretch_height", scroll=True,
+    )
+    widgets = dict(sliders, lattice=lattice, dipole=dipole, mode=mode, download=download,
+                   upload=upload, undo=undo, spectrum=spectrum, transition=transition,
+                   units=units, color_by=color_by, lens_axis=lens_axis)
+    return column, widgets
+
+
+def _nn_text(state: ExplorerState) -> str:
+    from physics.geometry import nearest_neighbour_distance
+
+    em = state.result.emitters
+    if em.n < 2:
+        return ""
+    return f"· nearest neighbours {nearest_neighbour_distance(em):.3g} λ0"
+
+
+def _step(state: ExplorerState, delta: int) -> None:
+    if state.result is None:
+        return
+    state.selected_mode = max(0, min(state.result.modes.n - 1, state.selected_mode + delta))
+
+
+# ---------------------------------------------------------------- page
+
+_URL_KEYS = {"lattice": "lattice", "n": "n", "nx": "nx", "ny": "ny", "nz": "nz",
+             "spacing": "a", "spacing_y": "ay", "radius": "radius", "disk_lattice": "disk",
+             "chain_axis": "axis", "dipole": "dipole", "theta_deg": "theta", "phi_deg": "phi",
+             "transition": "line", "units": "units", "lens_na": "na", "selected_mode": "mode"}
+
+
+def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None):
+    """One explorer page (a Panel layout) with its own session state."""
+    doc = pn.state.curdoc
+    served = doc is not None and pn.state.served
+    if state is None:
+        state = ExplorerState(runner=ServerRunner(doc) if served else None)
+        if scenario is not None:
+            state.apply_scenario(scenario, solve=False)
+    spectrum, array, far = SpectrumView(state), ArrayView(state), FarFieldView(state)
+    sidebar, widgets = _controls(state)
+    card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
+    state.param.watch(lambda e: setattr(card, "object", mode_card_html(state)),
+                      ["result", "mode_result", "selected_mode", "units", "transition",
+                       "wavelength_nm", "linewidth_mhz"])
+    error = pn.pane.Alert("", alert_type="danger", visible=False, sizing_mode="stretch_width")
+    caution = pn.pane.Alert("", alert_type="warning", visible=False, sizing_mode="stretch_width")
+
+    def show_messages(*_):
+        error.object = state.message
+        error.visible = bool(state.message)
+        notes = state.cautions()
+        caution.object = "\n\n".join(f"⚠ {n}" for n in notes)
+        caution.visible = bool(notes)
+
+    state.param.watch(show_messages, ["message", "result"])
+    spinner = pn.indicators.LoadingSpinner(value=False, size=22, name="")
+    busy_text = pn.pane.HTML("", styles={"font-size": "13px", "color": "#555"})
+
+    def show_busy(*_):
+        spinner.value = state.busy
+        busy_text.object = "computing…" if state.busy else ""
+
+    state.param.watch(show_busy, "busy")
+    title = state.scenario_name
+    heading = pn.pane.HTML(
+        "<div style='display:flex;align-items:baseline;gap:14px'>"
+        "<span style='font-size:22px;font-weight:700;color:#4a148c'>Choir</span>"
+        "<span style='font-size:14px;color:#555'>collective modes of emitter arrays</span></div>",
+        sizing_mode="stretch_width")
+    name_pane = pn.pane.HTML(f"<span style='font-size:13px'>{title}</span>")
+    state.param.watch(lambda e: setattr(name_pane, "object",
+                                        f"<span style='font-size:13px'>{e.new}</span>"),
+                      "scenario_name")
+    header = pn.Row(heading, name_pane, pn.layout.HSpacer(), busy_text, spinner,
+                    sizing_mode="stretch_width", styles={"border-bottom": "2px solid #d1c4e9"})
+    model = pn.pane.Markdown(MODEL_NOTE, sizing_mode="stretch_width",
+                             styles={"font-size": "12px", "color": "#444"})
+    ff_note = pn.pane.HTML(
+        "<span style='font-size:11px;color:#555'>Each disc is one hemisphere seen in direction "
+        "cosines (u<sub>x</sub>, u<sub>y</sub>) = (sinθ cosφ, sinθ sinφ), x to the right, y up — "
+        "the picture in a lens's back focal plane. A lens of numerical aperture NA collects "
+        "the dashed disc of radius NA.</span>", sizing_mode="stretch_width")
+    arr_note = pn.pane.HTML(
+        "<span style='font-size:11px;color:#555'>Disc radius ∝ |c<sub>j</sub>| of the selected "
+        "mode on emitter j (small discs: little excitation); colour = phase arg c<sub>j</sub> "
+        "with the largest amplitude set real and positive. Editing: choose the point tool in "
+        "the toolbar, click empty space to add, drag to move, click an emitter then press "
+        "Backspace to delete.</span>", sizing_mode="stretch_width")
+    main = pn.Column(
+        error, caution,
+        pn.Row(pn.Column(spectrum.figure, sizing_mode="stretch_width"),
+               pn.Column(array.figure, arr_note, sizing_mode="stretch_width"),
+               sizing_mode="stretch_width"),
+        pn.Row(pn.Column(far.figure, ff_note, sizing_mode="stretch_width"),
+               pn.Column(card, sizing_mode="stretch_width", max_width=420),
+               sizing_mode="stretch_width"),
+        model, sizing_mode="stretch_width")
+    page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
+                     sizing_mode="stretch_both")
+    page.explorer_state = state  # tests and notebooks reach the session state here
+    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "widgets": widgets}
+
+    if served:
+        state._applying = True  # hold solves until the URL has been read
+
+        def start():
+            state._applying = False
+            state.solve()
+
+        if pn.state.location is not None:
+            pn.state.location.sync(state, {k: v for k, v in _URL_KEYS.items()})
+        pn.state.onload(start)
+    else:
+        state.solve()
+    return page
+
+
+def explorer(scenario: str | Path | scn.Scenario | None = None):
+    """Show the explorer inline in a Jupyter notebook (one call).
+
+    Example: ``from app.explorer import explorer; explorer("scenarios/nonagon_ring.json")``.
+    """
+    pn.extension()
+    if isinstance(scenario, (str, Path)):
+        scenario = scn.load(scenario)
+    return build_explorer(scenario)
+
+
+def serve(scenario: scn.Scenario | None, *, port: int = 5006, address: str = "127.0.0.1",
+          show: bool = False, allow_origin: list[str] | None = None) -> None:
+    """Serve the explorer; every browser session gets its own state."""
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(1)  # one BLAS thread per solve: two sessions solve in parallel
+    pn.extension()
+    origins = allow_origin or [f"{address}:{port}", f"localhost:{port}"]
+    pn.serve({"/": lambda: build_explorer(scenario)}, port=port, address=address, show=show,
+             websocket_origin=origins, title="Choir explorer", print_url=True)
+
+
+def scenario_from_args(argv: list[str]) -> scn.Scenario | None:
+    """The scenario named on the command line of ``panel serve ... --args FILE``."""
+    path = argv[1] if len(argv) > 1 else os.environ.get("CHOIR_SCENARIO")
+    return scn.load(path) if path else None

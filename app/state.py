@@ -1,0 +1,452 @@
+"""All state of one explorer session, in one ``param.Parameterized`` class.
+
+The class never touches Bokeh or Panel widgets: views read its outputs
+(``result``, ``mode_result``, ``message``, ``busy``) and write its inputs.
+Heavy work goes through a *runner*: synchronous in tests and notebooks
+without a server, a thread pool with hand-back to the event loop when served
+(see :mod:`app.explorer`).  A generation counter drops stale results, so a
+slow old solve never overwrites a newer one.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Any, Callable
+
+import numpy as np
+import param
+
+from physics import scenario as scn
+from physics.far_field import collected_fraction, far_field_power, hemisphere_directions
+from physics.geometry import Emitters, nearest_neighbour_distance
+from physics.hamiltonian import coupling_matrix
+from physics.modes import DefectiveMatrixWarning, Modes, modes_from_matrix
+from physics.units import TRANSITIONS, Transition
+
+__all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
+           "NEAR_FIELD_WARN", "FAR_FIELD_PIXELS"]
+
+#: Sliders recompute while dragging up to this many emitters, on release above.
+LIVE_DRAG_LIMIT = 400
+#: Nearest-neighbour distance [λ0] below which the explorer warns that the
+#: near field dominates and real emitters stop being two-level point dipoles.
+NEAR_FIELD_WARN = 0.1
+#: Pixels across each hemisphere disc of the far-field view.
+FAR_FIELD_PIXELS = 81
+#: Most undo steps kept.
+UNDO_DEPTH = 50
+
+_GEOMETRY_PARAMS = ["lattice", "n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
+                    "disk_lattice", "chain_axis", "positions", "dipole", "theta_deg",
+                    "phi_deg", "dipoles_explicit", "environment"]
+_DIPOLE_CHOICES = ["x", "y", "z", "sigma+", "sigma-", "radial", "tangential",
+                   "polar angles", "per emitter"]
+
+
+@dataclass(frozen=True)
+class Result:
+    """One solved arrangement."""
+
+    generation: int
+    scenario: scn.Scenario
+    emitters: Emitters
+    coupling: np.ndarray
+    modes: Modes
+    warnings: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class ModeResult:
+    """Figures of the selected mode that need more than the eigen-decomposition."""
+
+    generation: int
+    mode: int
+    far_field: np.ndarray  # (P, 2P) dP/dΩ image [Γ0/sr], NaN outside the discs
+    extent: float  # half-width of one disc in direction cosines (1)
+    collected_up: float  # fraction into the lens along +z
+    collected_down: float  # fraction into the lens along −z
+    na: float
+
+
+class SyncRunner:
+    """Runs jobs at once, in the caller's thread (tests, notebooks without a server)."""
+
+    def submit(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
+        done(job())
+
+
+def _far_field_image(em: Emitters, c: np.ndarray, pixels: int) -> np.ndarray:
+    """dP/dΩ on the orthographic view of both hemispheres, side by side [Γ0/sr]."""
+    u = np.linspace(-1.0, 1.0, pixels)
+    ux, uy = np.meshgrid(u, u, indexing="xy")
+    inside = ux * ux + uy * uy <= 1.0
+    img = np.full((pixels, 2 * pixels), np.nan)
+    for k, side in enumerate(("+z", "-z")):
+        d = hemisphere_directions(ux[inside], uy[inside], side)
+        block = np.full((pixels, pixels), np.nan)
+        block[inside] = far_field_power(em, c, d)
+        img[:, k * pixels:(k + 1) * pixels] = block
+    return img
+
+
+class ExplorerState(param.Parameterized):
+    """Inputs and outputs of one explorer session."""
+
+    # --- geometry -------------------------------------------------------
+    lattice = param.Selector(objects=["square", "rectangular", "triangular", "honeycomb",
+                                      "kagome", "chain", "ring", "disk", "cubic", "explicit"],
+                             default="square", doc="Array generator (no unit); 'explicit' "
+                             "holds drawn or loaded positions")
+    n = param.Integer(20, bounds=(2, 2000), doc="Emitters in a chain or ring (count, no unit)")
+    nx = param.Integer(10, bounds=(1, 60), doc="Emitters or cells along x (count, no unit)")
+    ny = param.Integer(10, bounds=(1, 60), doc="Emitters or cells along y (count, no unit)")
+    nz = param.Integer(3, bounds=(1, 20), doc="Layers along z of a cubic block (count, no unit)")
+    spacing = param.Number(0.3, bounds=(0.02, 2.0), step=0.005,
+                           doc="Nearest-neighbour distance [λ0]; along x for rectangular")
+    spacing_y = param.Number(0.4, bounds=(0.02, 2.0), step=0.005,
+                             doc="Rectangular arrays: spacing along y [λ0]")
+    radius = param.Number(2.0, bounds=(0.05, 12.0), step=0.05, doc="Disk radius [λ0]")
+    disk_lattice = param.Selector(objects=["square", "triangular"], default="square",
+                                  doc="Lattice cut to the disk (no unit)")
+    chain_axis = param.Selector(objects=["x", "y", "z"], default="x",
+                                doc="Direction of a chain (no unit)")
+    positions = param.Array(default=None, allow_None=True,
+                            doc="Explicit positions, shape (N, 3) [λ0]")
+    # --- dipoles and environment ----------------------------------------
+    dipole = param.Selector(objects=_DIPOLE_CHOICES, default="x",
+                            doc="Dipole orientation (no unit); circular presets about z")
+    theta_deg = param.Number(90.0, bounds=(0.0, 180.0), step=1.0,
+                             doc="Dipole polar angle from +z [deg]")
+    phi_deg = param.Number(0.0, bounds=(-180.0, 180.0), step=1.0,
+                           doc="Dipole azimuth from +x [deg]")
+    dipoles_explicit = param.Array(default=None, allow_None=True,
+                                   doc="Per-emitter complex dipoles, shape (N, 3) (unit vectors, no unit)")
+    environment = param.Selector(objects=["free space"], default="free space",
+                                 doc="Electromagnetic environment (no unit)")
+    # --- units ------------------------------------------------------------
+    transition = param.Selector(objects=[*TRANSITIONS, "custom"], default="Rb87 D2",
+                                doc="Transition that sets λ0 and Γ0 (no unit)")
+    wavelength_nm = param.Number(780.0, bounds=(100.0, 1e5), doc="Custom λ0 [nm]")
+    linewidth_mhz = param.Number(6.0, bounds=(1e-9, 1e4), doc="Custom Γ0/2π [MHz]")
+    units = param.Selector(objects=["lab", "internal"], default="lab",
+                           doc="Display units (no unit): lab = nm, MHz, ns; internal = λ0, Γ0, 1/Γ0")
+    # --- analysis and display -------------------------------------------
+    color_by = param.Selector(objects=["participation_ratio", "petermann", "shift", "decay_rate"],
+                              default="participation_ratio", doc="Mode figure for the "
+                              "spectrum colours (no unit)")
+    selected_mode = param.Integer(0, bounds=(0, 9999),
+                                  doc="Selected mode (index, 0 = most subradiant; no unit)")
+    lens_na = param.Number(0.5, bounds=(0.05, 1.0), step=0.01,
+                           doc="Numerical aperture of the collection lens (no unit)")
+    lens_axis = param.Selector(objects=["+z", "-z"], default="+z",
+                               doc="Lens looks along this axis (no unit)")
+    projection = param.Selector(objects=["xy", "xz", "yz"], default="xy",
+                                doc="Plane of the array view (no unit)")
+    scenario_name = param.String("", doc="Scenario name (text, no unit)")
+    description = param.String("", doc="Scenario description (text, no unit)")
+    # --- outputs ------------------------------------------------------------
+    result = param.Parameter(None, doc="Latest solved arrangement, a Result (no unit)")
+    mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")
+    message = param.String("", doc="Last refusal or error, shown to the user (text, no unit)")
+    busy = param.Boolean(False, doc="True while a computation runs (no unit)")
+    undo_depth = param.Integer(0, bounds=(0, UNDO_DEPTH), doc="Edits that can be undone (count)")
+
+    def __init__(self, scenario: scn.Scenario | None = None, *, runner=None, **params) -> None:
+        super().__init__(**params)
+        self.runner = runner or SyncRunner()
+        self._generation = 0
+        self._mode_generation = 0
+        self._undo: list[scn.Scenario] = []
+        self._applying = False
+        self._pending_mode: int | None = None
+        self._seed: int | None = None
+        if scenario is not None:
+            self.apply_scenario(scenario, solve=False)
+
+    # ------------------------------------------------------------ scenario
+    @property
+    def transition_obj(self) -> Transition:
+        if self.transition == "custom":
+            return Transition(self.wavelength_nm, self.linewidth_mhz, "custom")
+        return TRANSITIONS[self.transition]
+
+    def to_scenario(self) -> scn.Scenario:
+        """The current inputs as a validated :class:`Scenario` (raises ScenarioError)."""
+        return scn.from_dict(self._document())
+
+    def _document(self, positions: np.ndarray | None = None,
+                  dipoles: np.ndarray | None = None) -> dict:
+        """Scenario document of the inputs; ``positions``/``dipoles`` override the geometry."""
+        lat = "explicit" if positions is not None else self.lattice
+        if positions is None:
+            positions = self.positions
+        if dipoles is None:
+            dipoles = self.dipoles_explicit
+        geo: dict[str, Any] = {"lattice": lat}
+        if lat in ("chain", "ring"):
+            geo.update(n=self.n, spacing=self.spacing)
+            if lat == "chain":
+                geo["axis"] = self.chain_axis
+        elif lat in ("square", "triangular", "honeycomb", "kagome"):
+            geo.update(nx=self.nx, ny=self.ny, spacing=self.spacing)
+        elif lat == "rectangular":
+            geo.update(nx=self.nx, ny=self.ny, spacing_x=self.spacing, spacing_y=self.spacing_y)
+        elif lat == "disk":
+            geo.update(radius=self.radius, spacing=self.spacing, disk_lattice=self.disk_lattice)
+        elif lat == "cubic":
+            geo.update(nx=self.nx, ny=self.ny, nz=self.nz, spacing=self.spacing)
+        else:
+            if positions is None:
+                raise scn.ScenarioError("geometry.positions", "no explicit positions yet")
+            geo["positions"] = [[float(v) for v in p] for p in positions]
+        if self.dipole == "polar angles":
+            dip: dict[str, Any] = {"theta_deg": self.theta_deg, "phi_deg": self.phi_deg}
+        elif self.dipole == "per emitter":
+            if dipoles is None or lat != "explicit":
+                raise scn.ScenarioError("dipole", "per-emitter dipoles need an explicit geometry")
+            dip = {"per_emitter": [[[float(c.real), float(c.imag)] for c in d]
+                                   for d in dipoles]}
+        else:
+            dip = {"preset": self.dipole}
+        tr = ({"wavelength_nm": self.wavelength_nm, "linewidth_mhz": self.linewidth_mhz}
+              if self.transition == "custom" else {"preset": self.transition})
+        doc: dict[str, Any] = {"format": scn.FORMAT, "version": scn.VERSION}
+        if self.scenario_name:
+            doc["name"] = self.scenario_name
+        if self.description:
+            doc["description"] = self.description
+        doc.update(transition=tr, geometry=geo, dipole=dip, environment={"kind": "free_space"},
+                   analysis={"lens_na": self.lens_na, "lens_axis": self.lens_axis},
+                   display={"units": self.units, "color_by": self.color_by})
+        if self._seed is not None:
+            doc["imperfections"] = {"seed": self._seed}
+        return doc
+
+    def scenario_for_export(self) -> scn.Scenario:
+        """The scenario including the selected mode (what a colleague should get)."""
+        sc = self.to_scenario()
+        n = self.result.emitters.n if self.result is not None else sc.emitters().n
+        return replace(sc, selected_mode=min(self.selected_mode, n - 1))
+
+    def apply_scenario(self, sc: scn.Scenario, *, solve: bool = True) -> None:
+        """Replace all inputs by those of ``sc`` in one update (one recompute)."""
+        g = dict(sc.geometry)
+        d = dict(sc.dipole)
+        upd: dict[str, Any] = {"lattice": g["lattice"]}
+        for key, name in (("n", "n"), ("nx", "nx"), ("ny", "ny"), ("nz", "nz"),
+                          ("spacing", "spacing"), ("spacing_x", "spacing"),
+                          ("spacing_y", "spacing_y"), ("radius", "radius"),
+                          ("disk_lattice", "disk_lattice"), ("axis", "chain_axis")):
+            if key in g:
+                upd[name] = self._clamped(name, g[key])
+        upd["positions"] = np.array(g["positions"], float) if "positions" in g else None
+        upd["dipoles_explicit"] = None
+        if "preset" in d:
+            upd["dipole"] = d["preset"]
+        elif "theta_deg" in d:
+            upd.update(dipole="polar angles", theta_deg=d["theta_deg"],
+                       phi_deg=((d["phi_deg"] + 180.0) % 360.0) - 180.0)
+        elif "vector" in d:
+            em = sc.emitters()
+            upd.update(lattice="explicit", positions=np.array(em.positions),
+                       dipole="per emitter", dipoles_explicit=np.array(em.dipoles))
+        else:
+            upd.update(dipole="per emitter",
+                       dipoles_explicit=np.array(d["per_emitter"], dtype=complex))
+        if upd["lattice"] == "explicit" and upd["positions"] is None:
+            upd["positions"] = np.array(sc.emitters().positions)
+        tr = sc.transition
+        if sc.transition_preset is not None:
+            upd["transition"] = sc.transition_preset
+        else:
+            upd.update(transition="custom", wavelength_nm=tr.wavelength_nm,
+                       linewidth_mhz=tr.linewidth_mhz)
+        upd.update(units=sc.display_units, color_by=sc.color_by, lens_na=sc.lens_na,
+                   lens_axis=sc.lens_axis, scenario_name=sc.name, description=sc.description,
+                   message="")
+        self._seed = sc.seed
+        self._applying = True
+        try:
+            self.param.update(**upd)
+        finally:
+            self._applying = False
+        self._pending_mode = sc.selected_mode
+        if solve:
+            self.solve()
+
+    def _clamped(self, name: str, value):
+        lo, hi = self.param[name].bounds
+        if lo is not None and value < lo or hi is not None and value > hi:
+            # the file is valid but outside the explorer's slider range
+            return type(value)(min(max(value, lo), hi))
+        return value
+
+    # ------------------------------------------------------------ solving
+    @param.depends(*_GEOMETRY_PARAMS, watch=True)
+    def _inputs_changed(self) -> None:
+        if self._applying:
+            return
+        if self.lattice == "explicit" and self.positions is None and self.result is not None:
+            # switching to "explicit" freezes the current arrangement as a list
+            self._applying = True
+            try:
+                self.positions = np.array(self.result.emitters.positions)
+            finally:
+                self._applying = False
+        self.solve()
+
+    def solve(self) -> None:
+        """Validate the inputs and (re)compute the modes through the runner."""
+        try:
+            sc = self.to_scenario()
+        except scn.ScenarioError as exc:
+            self.message = f"Not computed — {exc}"
+            return
+        self._generation += 1
+        gen = self._generation
+        self.busy = True
+        self.runner.submit(lambda: self._solve_job(gen, sc), self._accept_result)
+
+    @staticmethod
+    def _solve_job(gen: int, sc: scn.Scenario) -> Result | Exception:
+        import warnings
+
+        try:
+            em = sc.emitters()
+            H = coupling_matrix(em, sc.environment_model())
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always", DefectiveMatrixWarning)
+                modes = modes_from_matrix(H)
+            notes = tuple(str(w.message) for w in caught)
+            return Result(gen, sc, em, H, modes, notes)
+        except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
+            return exc
+
+    def _accept_result(self, res: Result | Exception) -> None:
+        if isinstance(res, Exception):
+            self.busy = False
+            self.message = f"Not computed — {res}"
+            return
+        if res.generation != self._generation:
+            return  # a newer request is on its way
+        pending, self._pending_mode = self._pending_mode, None
+        mode = self.selected_mode if pending is None else pending
+        mode = min(mode, res.modes.n - 1)
+        self.message = ""
+        self.busy = False
+        self.result = res
+        if mode != self.selected_mode:
+            self.selected_mode = mode  # its watcher computes the mode figures
+        else:
+            self._solve_mode()
+
+    @param.depends("selected_mode", "lens_na", watch=True)
+    def _mode_inputs_changed(self) -> None:
+        self._solve_mode()
+
+    def _solve_mode(self) -> None:
+        res = self.result
+        if res is None:
+            return
+        m = min(self.selected_mode, res.modes.n - 1)
+        self._mode_generation += 1
+        gen, na = self._mode_generation, self.lens_na
+        self.runner.submit(lambda: self._mode_job(gen, res, m, na), self._accept_mode)
+
+    @staticmethod
+    def _mode_job(gen: int, res: Result, m: int, na: float) -> ModeResult:
+        em, c = res.emitters, res.modes.vectors[:, m]
+        total = float(res.modes.decay_rates[m])  # exact for an eigenvector in free space
+        img = _far_field_image(em, c, FAR_FIELD_PIXELS)
+        up = collected_fraction(em, c, na, "+z", total=total) if total > 0 else math.nan
+        down = collected_fraction(em, c, na, "-z", total=total) if total > 0 else math.nan
+        return ModeResult(gen, m, img, 1.0, up, down, na)
+
+    def _accept_mode(self, mres: ModeResult) -> None:
+        if mres.generation == self._mode_generation:
+            self.mode_result = mres
+
+    # ------------------------------------------------------------ derived
+    def cautions(self) -> list[str]:
+        """Warnings about leaving the model's range of validity for the current result."""
+        out: list[str] = []
+        res = self.result
+        if res is None:
+            return out
+        nn = nearest_neighbour_distance(res.emitters)
+        if nn < NEAR_FIELD_WARN:
+            out.append(
+                f"Nearest neighbours are {nn:.3g} λ0 apart (< {NEAR_FIELD_WARN} λ0): the 1/r³ "
+                f"near field dominates; real emitters are then rarely two-level point dipoles "
+                f"(level structure, finite size, motion), so treat shifts with care.")
+        out.extend(res.warnings)
+        return out
+
+    def live_drag(self) -> bool:
+        """Whether sliders should recompute while dragging (small arrays)."""
+        return self.result is None or self.result.emitters.n <= LIVE_DRAG_LIMIT
+
+    # ------------------------------------------------------------ editing
+    def edit_positions(self, positions: np.ndarray, origin: np.ndarray) -> None:
+        """Replace the geometry by an explicit list (a drawn edit); undoable.
+
+        Parameters
+        ----------
+        positions : (M, 3) array_like [λ0]
+            The edited arrangement.
+        origin : (M,) int array_like
+            For each emitter, its index in the current arrangement, or −1 if new.
+            Per-emitter dipoles follow their emitters; new ones copy emitter 0's.
+            A preset (or polar angles) stays a preset.
+        """
+        positions = np.asarray(positions, dtype=float).reshape(-1, 3)
+        origin = np.asarray(origin, dtype=int)
+        upd: dict[str, Any] = {"lattice": "explicit", "positions": positions}
+        if self.dipole == "per emitter" and self.result is not None:
+            old = self.result.emitters.dipoles
+            upd["dipoles_explicit"] = np.where((origin >= 0)[:, None],
+                                               old[np.clip(origin, 0, None)], old[0])
+        try:
+            before = self.to_scenario()
+            trial = self._document(positions=positions, dipoles=upd.get("dipoles_explicit"))
+            scn.from_dict(trial)  # refuse before changing anything: a bad edit loses nothing
+        except scn.ScenarioError as exc:
+            self.message = f"Edit refused — {exc}"
+            return
+        self._undo.append(before)
+        del self._undo[:-UNDO_DEPTH]
+        self._applying = True
+        try:
+            self.param.update(**upd)
+        finally:
+            self._applying = False
+        self.undo_depth = len(self._undo)
+        self.solve()
+
+    def undo(self) -> None:
+        """Return to the geometry before the last edit."""
+        if not self._undo:
+            return
+        sc = self._undo.pop()
+        self.undo_depth = len(self._undo)
+        self.apply_scenario(sc)
+
+    # ------------------------------------------------------------ units for views
+    def length_label(self) -> str:
+        return "nm" if self.units == "lab" else "λ0"
+
+    def frequency_label(self) -> str:
+        return "MHz" if self.units == "lab" else "Γ0"
+
+    def time_label(self) -> str:
+        return "ns" if self.units == "lab" else "1/Γ0"
+
+    def to_length(self, x):
+        return self.transition_obj.length_nm(x) if self.units == "lab" else np.asarray(x)
+
+    def to_frequency(self, x):
+        """A rate or shift in display units (lab: as ordinary frequency Γ/2π, ω/2π)."""
+        return self.transition_obj.frequency_mhz(x) if self.units == "lab" else np.asarray(x)
+
+    def to_time(self, x):
+        return self.transition_obj.time_ns(x) if self.units == "lab" else np.asarray(x)

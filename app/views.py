@@ -1,0 +1,334 @@
+"""Views of the explorer: one class per plot, each building its Bokeh figure once.
+
+Every view watches the session state and only assigns ``source.data`` (and a
+few axis labels) afterwards, so live dragging stays smooth.  No formula lives
+here: numbers come from :mod:`physics` through the state, and the state's
+unit helpers convert them for display.
+"""
+from __future__ import annotations
+
+import colorsys
+import html
+
+import numpy as np
+from bokeh.models import (ColorBar, ColumnDataSource, HoverTool, Label, LinearColorMapper,
+                          PointDrawTool, Range1d, Span, TapTool)
+from bokeh.palettes import Cividis256, Inferno256
+from bokeh.plotting import figure
+
+from physics.geometry import nearest_neighbour_distance
+from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
+
+from .state import ExplorerState
+
+__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "mode_card_html", "PHASE_PALETTE",
+           "FIGURE_LABELS"]
+
+#: Readable names of the mode figures used for colouring.
+FIGURE_LABELS = {
+    "participation_ratio": "participation ratio (emitters carrying the mode)",
+    "petermann": "Petermann factor (1 = orthogonal modes)",
+    "shift": "collective shift",
+    "decay_rate": "log10 of decay rate / Γ0",
+}
+
+#: Rates at or below this [Γ0] are round-off; the log axis shows them here.
+RATE_FLOOR = 1e-15
+
+
+def _cyclic_palette(n: int = 256) -> list[str]:
+    """A cyclic palette for phases: hue runs once round the circle, light and even."""
+    out = []
+    for k in range(n):
+        r, g, b = colorsys.hls_to_rgb(k / n, 0.52, 0.78)
+        out.append("#%02x%02x%02x" % (int(255 * r), int(255 * g), int(255 * b)))
+    return out
+
+
+PHASE_PALETTE = _cyclic_palette()
+_ACCENT = "#c2185b"
+
+
+def _fmt(value: float, unit: str) -> str:
+    if not np.isfinite(value):
+        return "∞"
+    return f"{value:.4g} {unit}"
+
+
+class SpectrumView:
+    """Every collective mode as a point: shift (x) against decay rate (y, log)."""
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        self.source = ColumnDataSource(dict(x=[], y=[], c=[], mode=[], shift=[], rate=[],
+                                            life=[], pr=[], pk=[], tag=[]))
+        self.marker = ColumnDataSource(dict(x=[], y=[]))
+        p = figure(height=360, sizing_mode="stretch_width", y_axis_type="log",
+                   tools="pan,wheel_zoom,box_zoom,reset,save", toolbar_location="above",
+                   title="Collective spectrum — click a point to select its mode")
+        self.mapper = LinearColorMapper(palette=Cividis256)
+        r = p.scatter("x", "y", source=self.source, size=8, line_color="#333333",
+                      line_width=0.4, fill_color={"field": "c", "transform": self.mapper},
+                      nonselection_fill_alpha=1.0, nonselection_line_alpha=1.0,
+                      selection_fill_alpha=1.0)
+        p.scatter("x", "y", source=self.marker, size=20, marker="circle", fill_alpha=0.0,
+                  line_color=_ACCENT, line_width=3)
+        p.add_tools(HoverTool(renderers=[r], tooltips=[
+            ("mode", "@mode (@tag)"), ("shift", "@shift"), ("decay rate", "@rate"),
+            ("lifetime", "@life"), ("participation ratio", "@pr{0.0}"),
+            ("Petermann factor", "@pk{0.000}")]))
+        p.add_tools(TapTool(renderers=[r]))
+        self.single = Span(location=1.0, dimension="width", line_dash="dashed",
+                           line_color="#666666", line_width=1)
+        p.add_layout(self.single)
+        self.single_label = Label(x=5, y=1.0, x_units="screen", text="single emitter",
+                                  text_font_size="10px", text_color="#555555", y_offset=2)
+        p.add_layout(self.single_label)
+        self.colorbar = ColorBar(color_mapper=self.mapper, width=10, title_text_font_size="10px",
+                                 title_standoff=6)
+        p.add_layout(self.colorbar, "right")
+        self.figure = p
+        self.source.selected.on_change("indices", self._on_tap)
+        state.param.watch(self.update, ["result", "color_by", "units", "transition",
+                                        "wavelength_nm", "linewidth_mhz"])
+        state.param.watch(self.update_marker, ["selected_mode"])
+        self.update()
+
+    def update(self, *_) -> None:
+        st, res = self.state, self.state.result
+        if res is None:
+            self.source.data = {k: [] for k in self.source.data}
+            return
+        m = res.modes
+        rates, shifts = m.decay_rates, m.shifts
+        fu, tu = st.frequency_label(), st.time_label()
+        x = st.to_frequency(shifts)
+        y = st.to_frequency(np.maximum(rates, RATE_FLOOR))
+        life = st.to_time(m.lifetimes)
+        fig = {"participation_ratio": m.participation_ratio, "petermann": m.petermann,
+               "shift": x, "decay_rate": np.log10(np.maximum(rates, RATE_FLOOR))}[st.color_by]
+        rate_txt = [(_fmt(v, fu) if r > RATE_FLOOR else f"≤ {RATE_FLOOR:g} Γ0 (round-off)")
+                    for v, r in zip(st.to_frequency(rates), rates)]
+        self.source.data = dict(
+            x=x, y=y, c=fig, mode=np.arange(m.n), shift=[_fmt(v, fu) for v in x],
+            rate=rate_txt, life=[_fmt(v, tu) for v in life], pr=m.participation_ratio,
+            pk=m.petermann, tag=[radiance_label(r) for r in rates])
+        lo, hi = float(np.nanmin(fig)), float(np.nanmax(fig))
+        if hi - lo < 1e-12:
+            hi = lo + 1.0
+        self.mapper.update(low=lo, high=hi)
+        unit = f" [{fu}]" if st.color_by == "shift" else ""
+        self.colorbar.title = FIGURE_LABELS[st.color_by] + unit
+        lab = "Γ/2π [MHz]" if st.units == "lab" else "Γ [Γ0]"
+        shift_lab = "ω/2π [MHz]" if st.units == "lab" else "ω [Γ0]"
+        self.figure.yaxis.axis_label = f"decay rate {lab}"
+        self.figure.xaxis.axis_label = f"collective frequency shift {shift_lab}"
+        one = float(st.to_frequency(1.0))
+        self.single.location = one
+        self.single_label.y = one
+        self.update_marker()
+
+    def update_marker(self, *_) -> None:
+        st, res = self.state, self.state.result
+        if res is None:
+            return
+        k = min(st.selected_mode, res.modes.n - 1)
+        self.marker.data = dict(x=[self.source.data["x"][k]], y=[self.source.data["y"][k]])
+
+    def _on_tap(self, attr, old, new) -> None:
+        if not new:
+            return
+        mode = int(self.source.data["mode"][new[0]])
+        self.source.selected.indices = []
+        self.state.selected_mode = mode
+
+
+class ArrayView:
+    """Emitters at their positions, coloured by the selected mode's phase.
+
+    Disc radius ∝ |c_j| of the selected mode (with a floor so every emitter
+    stays visible); colour = arg c_j after fixing the global phase so the
+    largest amplitude is real and positive.  A drawing tool adds, drags and
+    deletes emitters; any edit turns the geometry into an explicit list.
+    """
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        self.source = ColumnDataSource(dict(x=[], y=[], r=[], phase=[], amp=[], idx=[]))
+        self.source.default_values = {"idx": -1, "r": 0.0, "phase": 0.0, "amp": 0.0}
+        p = figure(height=360, sizing_mode="stretch_width", match_aspect=True,
+                   tools="pan,wheel_zoom,reset,save", toolbar_location="above",
+                   title="Array — selected mode on each emitter")
+        self.mapper = LinearColorMapper(palette=PHASE_PALETTE, low=-np.pi, high=np.pi)
+        r = p.circle("x", "y", radius="r", source=self.source, line_color="#222222",
+                     line_width=0.6, fill_color={"field": "phase", "transform": self.mapper},
+                     selection_line_color=_ACCENT, selection_line_width=3,
+                     nonselection_fill_alpha=1.0, nonselection_line_alpha=1.0)
+        self.draw = PointDrawTool(renderers=[r], add=True, drag=True,
+                                  description="Edit emitters: click empty space to add, drag "
+                                  "to move, click then Backspace to delete")
+        p.add_tools(self.draw)
+        p.add_tools(HoverTool(renderers=[r], tooltips=[("emitter", "@idx"),
+                                                       ("|c|²", "@amp{0.0000}"),
+                                                       ("phase", "@phase{0.00} rad")]))
+        cb = ColorBar(color_mapper=self.mapper, width=10, title="phase arg c_j [rad]",
+                      title_text_font_size="10px", major_label_text_font_size="9px")
+        p.add_layout(cb, "right")
+        self.figure = p
+        self._writing = False
+        self.source.on_change("data", self._on_edit)
+        state.param.watch(self.update, ["result", "selected_mode", "units", "projection",
+                                        "transition", "wavelength_nm", "linewidth_mhz"])
+        self.update()
+
+    def _axes(self) -> tuple[int, int]:
+        return {"xy": (0, 1), "xz": (0, 2), "yz": (1, 2)}[self.state.projection]
+
+    def update(self, *_) -> None:
+        st, res = self.state, self.state.result
+        if res is None:
+            return
+        em, m = res.emitters, res.modes
+        k = min(st.selected_mode, m.n - 1)
+        c = m.vectors[:, k]
+        big = c[np.argmax(np.abs(c))]
+        c = c * np.conj(big) / abs(big) ** 2  # largest amplitude → 1 (real, positive)
+        amp = np.abs(c)
+        a, b = self._axes()
+        pos = st.to_length(em.positions)
+        nn = nearest_neighbour_distance(em) if em.n > 1 else 0.5
+        r0 = 0.42 * float(st.to_length(min(nn, 1.0)))
+        self._writing = True
+        try:
+            self.source.data = dict(x=pos[:, a], y=pos[:, b], r=r0 * np.maximum(amp, 0.18),
+                                    phase=np.angle(c), amp=amp ** 2 / np.sum(amp ** 2),
+                                    idx=np.arange(em.n))
+        finally:
+            self._writing = False
+        lab = st.length_label()
+        names = "xyz"
+        self.figure.xaxis.axis_label = f"{names[a]} [{lab}]"
+        self.figure.yaxis.axis_label = f"{names[b]} [{lab}]"
+
+    def _on_edit(self, attr, old, new) -> None:
+        if self._writing or self.state.result is None:
+            return
+        st = self.state
+        em = st.result.emitters
+        idx = np.asarray(new["idx"], dtype=int)
+        xs = np.asarray(new["x"], dtype=float)
+        ys = np.asarray(new["y"], dtype=float)
+        scale = float(st.to_length(1.0))
+        a, b = self._axes()
+        pos = np.zeros((len(idx), 3))
+        known = (idx >= 0) & (idx < em.n)
+        pos[known] = em.positions[idx[known]]
+        pos[~known] = em.positions.mean(axis=0)  # new emitters sit in the array's mean plane
+        pos[:, a] = xs / scale
+        pos[:, b] = ys / scale
+        changed = (len(idx) != em.n) or not np.allclose(pos, em.positions[np.clip(idx, 0, em.n - 1)],
+                                                        rtol=0, atol=1e-12)
+        if changed:
+            st.edit_positions(pos, np.where(known, idx, -1))
+            if st.message.startswith("Edit refused"):
+                self.update()  # put the refused edit back on screen
+
+
+class FarFieldView:
+    """dP/dΩ of the selected mode on both hemispheres, seen in direction cosines.
+
+    Each disc is the orthographic view (u_x, u_y) = (sinθ cosφ, sinθ sinφ) of a
+    hemisphere — what a lens's back focal plane shows; a lens of numerical
+    aperture NA collects the disc of radius NA, drawn dashed.
+    """
+
+    GAP = 0.35
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        off = 2.0 + self.GAP
+        self.images = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]))
+        self.lens = ColumnDataSource(dict(x=[], y=[], r=[]))
+        p = figure(height=300, sizing_mode="stretch_width", match_aspect=True,
+                   tools="save,reset", toolbar_location="above",
+                   x_range=Range1d(-1.15, off + 1.15), y_range=Range1d(-1.25, 1.3),
+                   title="Far field of the selected mode, dP/dΩ")
+        self.mapper = LinearColorMapper(palette=Inferno256, low=0.0, high=1.0,
+                                        nan_color="rgba(0,0,0,0)")
+        p.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.images,
+                color_mapper=self.mapper)
+        for cx in (0.0, off):
+            p.circle(x=[cx], y=[0.0], radius=1.0, fill_alpha=0.0, line_color="#444444")
+        p.circle("x", "y", radius="r", source=self.lens, fill_alpha=0.0, line_color="#29b6f6",
+                 line_width=2.5, line_dash="dashed")
+        p.add_layout(Label(x=0.0, y=1.05, text="upper hemisphere (+z)", text_align="center",
+                           text_font_size="11px"))
+        p.add_layout(Label(x=off, y=1.05, text="lower hemisphere (−z)", text_align="center",
+                           text_font_size="11px"))
+        self.lens_label = Label(x=off / 2, y=-1.22, text="", text_align="center",
+                                text_font_size="11px", text_color="#0277bd")
+        p.add_layout(self.lens_label)
+        p.axis.visible = False
+        p.grid.visible = False
+        cb = ColorBar(color_mapper=self.mapper, width=10, title="dP/dΩ [Γ0 per sr]",
+                      title_text_font_size="10px")
+        p.add_layout(cb, "right")
+        self.figure = p
+        self._off = off
+        state.param.watch(self.update, ["mode_result", "lens_axis"])
+        self.update()
+
+    def update(self, *_) -> None:
+        st, mres = self.state, self.state.mode_result
+        if mres is None:
+            return
+        img = mres.far_field
+        pix = img.shape[0]
+        up, down = img[:, :pix], img[:, pix:]
+        self.images.data = dict(image=[up, down], x=[-1.0, self._off - 1.0], y=[-1.0, -1.0],
+                                dw=[2.0, 2.0], dh=[2.0, 2.0])
+        top = float(np.nanmax(img)) if np.any(np.isfinite(img)) else 1.0
+        self.mapper.update(low=0.0, high=top if top > 0 else 1.0)
+        cx = 0.0 if st.lens_axis == "+z" else self._off
+        self.lens.data = dict(x=[cx], y=[0.0], r=[mres.na])
+        frac = mres.collected_up if st.lens_axis == "+z" else mres.collected_down
+        self.lens_label.text = (f"lens NA {mres.na:.2f} along {st.lens_axis}: collects "
+                                f"{100 * frac:.3g} % of mode {mres.mode}'s emission")
+
+
+def mode_card_html(state: ExplorerState) -> str:
+    """HTML of the mode card: the selected mode's figures in the chosen units."""
+    res, mres = state.result, state.mode_result
+    if res is None:
+        return "<p>No result yet.</p>"
+    m = res.modes
+    k = min(state.selected_mode, m.n - 1)
+    rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
+    fu, tu = state.frequency_label(), state.time_label()
+    tag = radiance_label(rate)
+    life = state.to_time(1.0 / rate) if rate > RATE_FLOOR else np.inf
+    rate_txt = (_fmt(float(state.to_frequency(rate)), fu) if rate > RATE_FLOOR
+                else f"≤ {RATE_FLOOR:g} Γ0 (round-off)")
+    pre = "Γ/2π" if state.units == "lab" else "Γ"
+    spre = "ω/2π" if state.units == "lab" else "ω"
+    rows = [
+        (f"decay rate {pre}", f"{rate_txt} &nbsp;({rate:.4g} Γ0)"),
+        (f"shift {spre}", _fmt(float(state.to_frequency(shift)), fu)),
+        ("lifetime 1/Γ", _fmt(float(life), tu)),
+        ("participation ratio", f"{m.participation_ratio[k]:.4g} of {m.n} emitters"),
+        ("Petermann factor", f"{m.petermann[k]:.4g}"),
+    ]
+    if m.multiplicity[k] > 1:
+        rows.append(("degeneracy", f"{m.multiplicity[k]}-fold"))
+    if mres is not None and mres.mode == k:
+        rows.append((f"lens NA {mres.na:.2f}", f"{100 * mres.collected_up:.3g} % along +z, "
+                     f"{100 * mres.collected_down:.3g} % along −z"))
+    body = "".join(f"<tr><th style='text-align:left;font-weight:500;padding-right:12px'>"
+                   f"{html.escape(a)}</th><td>{b}</td></tr>" for a, b in rows)
+    return (f"<div style='font-size:13px'><b style='font-size:15px'>Mode {k}</b> of {m.n} "
+            f"&nbsp;<span style='background:#ede7f6;border-radius:8px;padding:1px 8px'>"
+            f"{tag}</span><table style='margin-top:6px'>{body}</table>"
+            f"<div style='color:#666;font-size:11px;margin-top:6px'>Tags: subradiant below "
+            f"{SUBRADIANT_BELOW:g} Γ0, superradiant above {SUPERRADIANT_ABOVE:g} Γ0, otherwise "
+            f"near single-emitter. Modes are numbered by decay rate (0 = most subradiant)."
+            f"</div></div>")

@@ -1,0 +1,65 @@
+"""Exporters: results as text files (CSV) for colleagues and other tools.
+
+Pure functions from results to text; the command line writes the text to
+files and the explorer offers it as downloads.  Floats use Python's
+round-trip representation, so nothing is lost.
+"""
+from __future__ import annotations
+
+import csv
+import io
+
+import numpy as np
+
+from .far_field import directions_from_angles, far_field_power
+from .geometry import Emitters
+from .modes import Modes
+from .units import Transition
+
+__all__ = ["spectrum_csv", "far_field_csv", "SPECTRUM_COLUMNS"]
+
+#: Columns of the spectrum file, with their units.
+SPECTRUM_COLUMNS = {
+    "mode": "index, ascending decay rate (0 = most subradiant)",
+    "shift_gamma0": "collective frequency shift ω_m [Γ0]",
+    "decay_rate_gamma0": "collective decay rate Γ_m [Γ0]",
+    "lifetime_per_gamma0": "1/Γ_m [1/Γ0]",
+    "shift_mhz": "ω_m/2π [MHz]",
+    "decay_rate_mhz": "Γ_m/2π [MHz]",
+    "lifetime_ns": "1/Γ_m [ns]",
+    "participation_ratio": "(Σ|c|²)²/Σ|c|⁴, 1 to N",
+    "petermann": "Petermann factor, ≥ 1",
+}
+
+
+def spectrum_csv(modes: Modes, transition: Transition) -> str:
+    """All modes as CSV text, internal and lab units side by side."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(list(SPECTRUM_COLUMNS))
+    shifts, rates, life = modes.shifts, modes.decay_rates, modes.lifetimes
+    pr, pk = modes.participation_ratio, modes.petermann
+    for m in range(modes.n):
+        w.writerow([m, repr(float(shifts[m])), repr(float(rates[m])), repr(float(life[m])),
+                    repr(float(transition.frequency_mhz(shifts[m]))),
+                    repr(float(transition.frequency_mhz(rates[m]))),
+                    repr(float(transition.time_ns(life[m]))),
+                    repr(float(pr[m])), repr(float(pk[m]))])
+    return buf.getvalue()
+
+
+def far_field_csv(em: Emitters, amplitudes: np.ndarray, *, label: str = "",
+                  step_deg: float = 2.0) -> str:
+    """dP/dΩ on a regular (θ, φ) grid as CSV text [Γ0 per steradian]."""
+    theta = np.radians(np.arange(0.0, 180.0 + 1e-9, step_deg))
+    phi = np.radians(np.arange(0.0, 360.0, 2.0 * step_deg))
+    TH, PH = np.meshgrid(theta, phi, indexing="ij")
+    power = far_field_power(em, amplitudes, directions_from_angles(TH.ravel(), PH.ravel()))
+    buf = io.StringIO()
+    buf.write(f"# far field {label}: dP/dOmega in units of Gamma0 per steradian; "
+              f"theta from +z, phi from +x\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["theta_deg", "phi_deg", "dP_dOmega_gamma0_per_sr"])
+    for t, p, v in zip(np.degrees(TH.ravel()), np.degrees(PH.ravel()), power):
+        w.writerow([f"{t:.6g}", f"{p:.6g}", repr(float(v))])
+    return buf.getvalue()

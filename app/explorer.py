@@ -84,6 +84,7 @@ _LABELS = {
     "transition": "Transition", "wavelength_nm": "Custom λ0 [nm]",
     "linewidth_mhz": "Custom Γ0/2π [MHz]", "color_by": "Colour modes by",
     "lens_na": "Lens NA", "lens_axis": "Lens looks along", "projection": "Array view plane",
+    "far_field_scale": "Far-field colour scale",
 }
 
 
@@ -92,7 +93,9 @@ def _slider(state: ExplorerState, name: str, integer: bool = False):
     p = state.param[name]
     cls = pn.widgets.IntSlider if integer else pn.widgets.FloatSlider
     kw = {} if integer else {"step": p.step or 0.01}
-    w = cls(name=_LABELS[name], start=p.bounds[0], end=p.bounds[1], value=getattr(state, name),
+    lo, hi = p.get_soft_bounds()
+    value = getattr(state, name)
+    w = cls(name=_LABELS[name], start=min(lo, value), end=max(hi, value), value=value,
             sizing_mode="stretch_width", **kw)
 
     def live(event):
@@ -104,7 +107,11 @@ def _slider(state: ExplorerState, name: str, integer: bool = False):
 
     w.param.watch(live, "value")
     w.param.watch(final, "value_throttled")
-    state.param.watch(lambda e: setattr(w, "value", e.new), name)
+    def from_state(event):
+        # a loaded file may lie outside the slider's usual range: widen it
+        w.param.update(start=min(w.start, event.new), end=max(w.end, event.new), value=event.new)
+
+    state.param.watch(from_state, name)
     return w
 
 
@@ -181,6 +188,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
                               "ω/2π), ns · internal: λ0, Γ0, 1/Γ0</span>")
     color_by = _select(state, "color_by")
     projection = _select(state, "projection", pn.widgets.RadioButtonGroup)
+    ff_scale = _select(state, "far_field_scale", pn.widgets.RadioButtonGroup)
 
     mode = pn.widgets.IntInput(name="Selected mode (↑/↓ to step; 0 = most subradiant)",
                                value=state.selected_mode, start=0, step=1,
@@ -237,7 +245,11 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         card("Dipoles and environment", dipole, angles, environment),
         card("Transition and units", transition, custom, tr_info, units, units_note),
         card("Mode and lens", mode, pn.Row(prev_b, next_b, sizing_mode="stretch_width"),
-             sliders["lens_na"], lens_axis, color_by, projection),
+             sliders["lens_na"], lens_axis),
+        card("Display", color_by, pn.pane.HTML("<span style='font-size:12px'>Array view plane"
+                                               "</span>"), projection,
+             pn.pane.HTML("<span style='font-size:12px'>Far-field colour scale</span>"),
+             ff_scale),
         card("Share", download, pn.pane.HTML("<span style='font-size:12px'>Open a scenario "
                                              "file (.json):</span>"), upload, spectrum,
              pn.pane.HTML("<span style='font-size:11px;color:#555'>Each plot saves as PNG "

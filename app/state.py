@@ -17,7 +17,7 @@ import numpy as np
 import param
 
 from physics import scenario as scn
-from physics.far_field import collected_fraction, far_field_power, hemisphere_directions
+from physics.far_field import collected_fraction, far_field_image
 from physics.geometry import Emitters, nearest_neighbour_distance
 from physics.hamiltonian import coupling_matrix
 from physics.modes import DefectiveMatrixWarning, Modes, modes_from_matrix
@@ -32,7 +32,7 @@ LIVE_DRAG_LIMIT = 400
 #: near field dominates and real emitters stop being two-level point dipoles.
 NEAR_FIELD_WARN = 0.1
 #: Pixels across each hemisphere disc of the far-field view.
-FAR_FIELD_PIXELS = 81
+FAR_FIELD_PIXELS = 121
 #: Most undo steps kept.
 UNDO_DEPTH = 50
 
@@ -78,15 +78,7 @@ class SyncRunner:
 def _far_field_image(em: Emitters, c: np.ndarray, pixels: int) -> np.ndarray:
     """dP/dΩ on the orthographic view of both hemispheres, side by side [Γ0/sr]."""
     u = np.linspace(-1.0, 1.0, pixels)
-    ux, uy = np.meshgrid(u, u, indexing="xy")
-    inside = ux * ux + uy * uy <= 1.0
-    img = np.full((pixels, 2 * pixels), np.nan)
-    for k, side in enumerate(("+z", "-z")):
-        d = hemisphere_directions(ux[inside], uy[inside], side)
-        block = np.full((pixels, pixels), np.nan)
-        block[inside] = far_field_power(em, c, d)
-        img[:, k * pixels:(k + 1) * pixels] = block
-    return img
+    return np.hstack([far_field_image(em, c, u, side) for side in ("+z", "-z")])
 
 
 class ExplorerState(param.Parameterized):
@@ -97,15 +89,21 @@ class ExplorerState(param.Parameterized):
                                       "kagome", "chain", "ring", "disk", "cubic", "explicit"],
                              default="square", doc="Array generator (no unit); 'explicit' "
                              "holds drawn or loaded positions")
-    n = param.Integer(20, bounds=(2, 2000), doc="Emitters in a chain or ring (count, no unit)")
-    nx = param.Integer(10, bounds=(1, 60), doc="Emitters or cells along x (count, no unit)")
-    ny = param.Integer(10, bounds=(1, 60), doc="Emitters or cells along y (count, no unit)")
-    nz = param.Integer(3, bounds=(1, 20), doc="Layers along z of a cubic block (count, no unit)")
-    spacing = param.Number(0.3, bounds=(0.02, 2.0), step=0.005,
+    # bounds are those of the scenario file; softbounds set the slider ranges
+    n = param.Integer(20, bounds=(2, 10000), softbounds=(2, 600),
+                      doc="Emitters in a chain or ring (count, no unit)")
+    nx = param.Integer(10, bounds=(1, 10000), softbounds=(1, 50),
+                       doc="Emitters or cells along x (count, no unit)")
+    ny = param.Integer(10, bounds=(1, 10000), softbounds=(1, 50),
+                       doc="Emitters or cells along y (count, no unit)")
+    nz = param.Integer(3, bounds=(1, 10000), softbounds=(1, 12),
+                       doc="Layers along z of a cubic block (count, no unit)")
+    spacing = param.Number(0.3, bounds=(0.001, 1000.0), softbounds=(0.02, 2.0), step=0.005,
                            doc="Nearest-neighbour distance [λ0]; along x for rectangular")
-    spacing_y = param.Number(0.4, bounds=(0.02, 2.0), step=0.005,
+    spacing_y = param.Number(0.4, bounds=(0.001, 1000.0), softbounds=(0.02, 2.0), step=0.005,
                              doc="Rectangular arrays: spacing along y [λ0]")
-    radius = param.Number(2.0, bounds=(0.05, 12.0), step=0.05, doc="Disk radius [λ0]")
+    radius = param.Number(2.0, bounds=(0.001, 1000.0), softbounds=(0.05, 12.0), step=0.05,
+                          doc="Disk radius [λ0]")
     disk_lattice = param.Selector(objects=["square", "triangular"], default="square",
                                   doc="Lattice cut to the disk (no unit)")
     chain_axis = param.Selector(objects=["x", "y", "z"], default="x",
@@ -140,6 +138,9 @@ class ExplorerState(param.Parameterized):
                            doc="Numerical aperture of the collection lens (no unit)")
     lens_axis = param.Selector(objects=["+z", "-z"], default="+z",
                                doc="Lens looks along this axis (no unit)")
+    far_field_scale = param.Selector(objects=["linear", "log"], default="log",
+                                     doc="Colour scale of the far-field view (no unit); log "
+                                     "shows 4 decades below the maximum")
     projection = param.Selector(objects=["xy", "xz", "yz"], default="xy",
                                 doc="Plane of the array view (no unit)")
     scenario_name = param.String("", doc="Scenario name (text, no unit)")
@@ -238,7 +239,7 @@ class ExplorerState(param.Parameterized):
                           ("spacing_y", "spacing_y"), ("radius", "radius"),
                           ("disk_lattice", "disk_lattice"), ("axis", "chain_axis")):
             if key in g:
-                upd[name] = self._clamped(name, g[key])
+                upd[name] = g[key]
         upd["positions"] = np.array(g["positions"], float) if "positions" in g else None
         upd["dipoles_explicit"] = None
         if "preset" in d:
@@ -273,13 +274,6 @@ class ExplorerState(param.Parameterized):
         self._pending_mode = sc.selected_mode
         if solve:
             self.solve()
-
-    def _clamped(self, name: str, value):
-        lo, hi = self.param[name].bounds
-        if lo is not None and value < lo or hi is not None and value > hi:
-            # the file is valid but outside the explorer's slider range
-            return type(value)(min(max(value, lo), hi))
-        return value
 
     # ------------------------------------------------------------ solving
     @param.depends(*_GEOMETRY_PARAMS, watch=True)

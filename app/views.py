@@ -32,6 +32,9 @@ FIGURE_LABELS = {
     "decay_rate": "log10 of decay rate / Γ0",
 }
 
+#: Decades shown by the logarithmic far-field colour scale.
+LOG_DECADES = 4.0
+
 #: Rates at or below this [Γ0] are round-off; the log axis shows them here.
 RATE_FLOOR = 1e-15
 
@@ -275,7 +278,8 @@ class FarFieldView:
         p.add_layout(cb, "right")
         self.figure = p
         self._off = off
-        state.param.watch(self.update, ["mode_result", "lens_axis"])
+        self.colorbar = cb
+        state.param.watch(self.update, ["mode_result", "lens_axis", "far_field_scale"])
         self.update()
 
     def update(self, *_) -> None:
@@ -284,11 +288,19 @@ class FarFieldView:
             return
         img = mres.far_field
         pix = img.shape[0]
+        top = float(np.nanmax(img)) if np.any(np.isfinite(img)) else 1.0
+        top = top if top > 0 else 1.0
+        if st.far_field_scale == "log":
+            with np.errstate(divide="ignore"):
+                img = np.log10(np.maximum(img / top, 10.0 ** -LOG_DECADES))
+            self.mapper.update(low=-LOG_DECADES, high=0.0)
+            self.colorbar.title = (f"log10 of dP/dΩ / max   (max = {top:.3g} Γ0 per sr)")
+        else:
+            self.mapper.update(low=0.0, high=top)
+            self.colorbar.title = "dP/dΩ [Γ0 per sr]"
         up, down = img[:, :pix], img[:, pix:]
         self.images.data = dict(image=[up, down], x=[-1.0, self._off - 1.0], y=[-1.0, -1.0],
                                 dw=[2.0, 2.0], dh=[2.0, 2.0])
-        top = float(np.nanmax(img)) if np.any(np.isfinite(img)) else 1.0
-        self.mapper.update(low=0.0, high=top if top > 0 else 1.0)
         cx = 0.0 if st.lens_axis == "+z" else self._off
         self.lens.data = dict(x=[cx], y=[0.0], r=[mres.na])
         frac = mres.collected_up if st.lens_axis == "+z" else mres.collected_down

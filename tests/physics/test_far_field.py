@@ -10,7 +10,8 @@ from hypothesis import strategies as st
 
 from physics import (Emitters, FreeSpace, collected_fraction, coupling_matrix, far_field_power,
                      lattices, solve_modes, total_power)
-from physics.far_field import angular_order, cap_grid, directions_from_angles, sphere_grid
+from physics.far_field import (angular_order, cap_grid, directions_from_angles, far_field_image,
+                               hemisphere_directions, sphere_grid)
 from physics.hamiltonian import decay_operator
 
 # The quadrature is exact for the band-limited far-field pattern up to its order
@@ -235,3 +236,25 @@ def test_sphere_grid_integrates_low_harmonics_exactly(order: int) -> None:
     # ∫ z² dΩ = 4π/3 and ∫ x² y² dΩ = 4π/15 (common practice, no source)
     assert np.sum(g.weights * n[:, 2] ** 2) == pytest.approx(4 * np.pi / 3, rel=1e-13)
     assert np.sum(g.weights * (n[:, 0] * n[:, 1]) ** 2) == pytest.approx(4 * np.pi / 15, rel=1e-13)
+
+
+@pytest.mark.parametrize("make", [
+    pytest.param(lambda: lattices.square(9, 7, 0.3, "x"), id="planar"),
+    pytest.param(lambda: lattices.cubic(3, 4, 3, 0.35, "sigma+"), id="layers"),
+    pytest.param(lambda: Emitters(np.random.default_rng(3).normal(size=(25, 3)),
+                                  np.random.default_rng(4).normal(size=(25, 3))), id="cloud"),
+])
+@pytest.mark.parametrize("side", ["+z", "-z"])
+def test_far_field_image_equals_the_direct_sum(make, side):
+    """The layer-separable evaluation is an exact rewriting of the sum (algebra; common practice, no source)."""
+    em = make()
+    rng = np.random.default_rng(5)
+    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    u = np.linspace(-1.0, 1.0, 41)
+    img = far_field_image(em, c, u, side)
+    ux, uy = np.meshgrid(u, u, indexing="xy")
+    inside = ux ** 2 + uy ** 2 <= 1.0
+    ref = far_field_power(em, c, hemisphere_directions(ux[inside], uy[inside], side))
+    assert np.all(np.isnan(img[~inside]))
+    # round-off only: 1e-12 of the peak
+    np.testing.assert_allclose(img[inside], ref, rtol=0, atol=1e-12 * ref.max())

@@ -1,0 +1,156 @@
+"""The explorer's session state, without a browser (common practice, no source)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import param
+import pytest
+
+from app.state import NEAR_FIELD_WARN, ExplorerState
+from physics import FreeSpace, collected_fraction, scenario as scn, solve_modes
+
+ROOT = Path(__file__).parents[2]
+SCENARIOS = sorted((ROOT / "scenarios").glob("*.json"))
+
+
+class ManualRunner:
+    """Holds jobs until the test releases them, in any order (to test staleness)."""
+
+    def __init__(self):
+        self.jobs = []
+
+    def submit(self, job, done):
+        self.jobs.append((job, done))
+
+    def release(self, k):
+        job, done = self.jobs.pop(k)
+        done(job())
+
+
+def test_every_parameter_documents_its_unit_and_bounds():
+    """STYLE: every parameter has a doc that states its unit, numbers have bounds."""
+    for name, p in ExplorerState.param.objects().items():
+        if name == "name":  # param's own instance name
+            continue
+        assert p.doc, name
+        assert "[" in p.doc or "no unit" in p.doc or "count" in p.doc, (name, p.doc)
+        if isinstance(p, param.Number):
+            assert p.bounds is not None and None not in p.bounds, name
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_each_demo_scenario_loads_and_solves(path):
+    sc = scn.load(path)
+    st = ExplorerState(sc)
+    st.solve()
+    assert st.message == ""
+    assert st.result.emitters == sc.emitters()
+    assert st.selected_mode == sc.selected_mode
+    ref = solve_modes(sc.emitters(), FreeSpace())
+    # same eigenvalues as the physics core (same code path; 1e-12 Γ0 round-off)
+    np.testing.assert_allclose(st.result.modes.eigenvalues, ref.eigenvalues, atol=1e-12)
+    c = ref.vectors[:, sc.selected_mode]
+    want = collected_fraction(sc.emitters(), c, sc.lens_na, "+z")
+    assert st.mode_result.collected_up == pytest.approx(want, rel=1e-9, abs=1e-12)
+
+
+def test_spacing_change_recomputes_and_moves_the_spectrum():
+    st = ExplorerState()
+    st.solve()
+    before = st.result.modes.eigenvalues.copy()
+    st.spacing = 0.45
+    assert st.result.scenario.geometry == (("lattice", "square"), ("nx", 10), ("ny", 10),
+                                           ("spacing", 0.45))
+    assert np.max(np.abs(st.result.modes.eigenvalues - before)) > 1e-3
+
+
+def test_a_stale_result_never_overwrites_a_newer_one():
+    runner = ManualRunner()
+    st = ExplorerState(runner=runner)
+    st.solve()  # job 0: spacing 0.3
+    st.spacing = 0.5  # job 1
+    runner.release(1)  # the newer finishes first...
+    newest = st.result
+    assert newest.scenario.geometry[-1] == ("spacing", 0.5)
+    runner.release(0)  # ...then the older one arrives and must be dropped
+    assert st.result is newest
+    assert st.busy is False or runner.jobs  # the mode job may still be pending
+
+
+def test_edit_adds_an_emitter_and_undo_restores_the_lattice():
+    st = ExplorerState(lattice="chain", n=5, spacing=0.3)
+    st.solve()
+    em = st.result.emitters
+    st.edit_positions(np.vstack([em.positions, [[0.0, 0.5, 0.0]]]), np.r_[np.arange(5), -1])
+    assert st.lattice == "explicit" and st.result.emitters.n == 6
+    assert st.undo_depth == 1
+    st.undo()
+    assert st.lattice == "chain" and st.result.emitters.n == 5 and st.undo_depth == 0
+
+
+def test_a_refused_edit_keeps_the_geometry_and_says_why():
+    st = ExplorerState(lattice="chain", n=4, spacing=0.3)
+    st.solve()
+    em = st.result.emitters
+    st.edit_positions(np.vstack([em.positions, em.positions[:1]]), np.r_[np.arange(4), -1])
+    assert "Edit refused" in st.message and "emitters 0 and 4" in st.message
+    assert st.lattice == "chain" and st.result.emitters.n == 4 and st.undo_depth == 0
+
+
+def test_per_emitter_dipoles_follow_their_emitters_through_an_edit():
+    sc = scn.load(ROOT / "scenarios" / "hand_placed_cluster.json")
+    st = ExplorerState(sc)
+    st.solve()
+    em = st.result.emitters
+    keep = np.array([3, 1, 2])  # delete all but three, reordered
+    st.edit_positions(em.positions[keep], keep)
+    np.testing.assert_array_equal(st.result.emitters.dipoles, em.dipoles[keep])
+
+
+def test_export_then_import_reproduces_the_session_exactly():
+    sc = scn.load(ROOT / "scenarios" / "hand_placed_cluster.json")
+    st = ExplorerState(sc)
+    st.solve()
+    st.selected_mode = 4
+    em = st.result.emitters
+    st.edit_positions(np.vstack([em.positions, [[1.5, 1.5, 0.0]]]), np.r_[np.arange(em.n), -1])
+    text = scn.dumps(st.scenario_for_export())
+    other = ExplorerState(scn.loads(text))
+    other.solve()
+    assert other.result.emitters == st.result.emitters
+    assert other.selected_mode == st.selected_mode
+    assert scn.dumps(other.scenario_for_export()) == text
+    np.testing.assert_array_equal(other.result.modes.eigenvalues, st.result.modes.eigenvalues)
+
+
+def test_near_field_caution_appears_below_the_threshold():
+    st = ExplorerState(lattice="chain", n=6, spacing=0.3)
+    st.solve()
+    assert not any("near field" in c for c in st.cautions())
+    st.spacing = NEAR_FIELD_WARN / 2
+    assert any("near field" in c for c in st.cautions())
+
+
+def test_invalid_combination_gives_a_message_and_keeps_the_last_result():
+    st = ExplorerState(lattice="ring", n=5, spacing=0.3)
+    st.solve()
+    kept = st.result
+    st.dipole = "per emitter"  # needs an explicit geometry
+    assert "per-emitter" in st.message
+    assert st.result is kept
+
+
+def test_widget_bounds_refuse_out_of_range_values():
+    st = ExplorerState()
+    with pytest.raises(ValueError, match="spacing"):
+        st.spacing = 5000.0  # the scenario file allows 0.001 to 1000 λ0
+
+
+def test_display_units_convert_at_the_edge():
+    st = ExplorerState(transition="Rb87 D2")
+    assert st.frequency_label() == "MHz"
+    # 1 Γ0 shown as Γ0/2π of the Rb87 D2 line (Steck, from memory: 6.0666 MHz)
+    assert float(st.to_frequency(1.0)) == pytest.approx(6.0666, rel=1e-12)
+    st.units = "internal"
+    assert float(st.to_frequency(1.0)) == 1.0 and st.time_label() == "1/Γ0"

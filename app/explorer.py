@@ -95,7 +95,7 @@ def _slider(state: ExplorerState, name: str, integer: bool = False):
     kw = {} if integer else {"step": p.step or 0.01}
     lo, hi = p.get_soft_bounds()
     value = getattr(state, name)
-    w = cls(name=_LABELS[name], start=min(lo, value), end=max(hi, value), value=value,
+    w = cls(label=_LABELS[name], start=min(lo, value), end=max(hi, value), value=value,
             sizing_mode="stretch_width", **kw)
 
     def live(event):
@@ -116,7 +116,7 @@ def _slider(state: ExplorerState, name: str, integer: bool = False):
 
 
 def _select(state: ExplorerState, name: str, widget=pn.widgets.Select, **kw):
-    return widget.from_param(state.param[name], name=_LABELS.get(name, name),
+    return widget.from_param(state.param[name], label=_LABELS.get(name, name),
                              sizing_mode="stretch_width", **kw)
 
 
@@ -167,9 +167,9 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     show_angles()
     environment = _select(state, "environment")
     transition = _select(state, "transition")
-    wl = pn.widgets.FloatInput.from_param(state.param.wavelength_nm, name=_LABELS["wavelength_nm"],
+    wl = pn.widgets.FloatInput.from_param(state.param.wavelength_nm, label=_LABELS["wavelength_nm"],
                                           sizing_mode="stretch_width")
-    lw = pn.widgets.FloatInput.from_param(state.param.linewidth_mhz, name=_LABELS["linewidth_mhz"],
+    lw = pn.widgets.FloatInput.from_param(state.param.linewidth_mhz, label=_LABELS["linewidth_mhz"],
                                           sizing_mode="stretch_width")
     custom = pn.Row(wl, lw, sizing_mode="stretch_width")
     tr_info = pn.pane.HTML(styles={"font-size": "12px", "color": "#444"})
@@ -183,14 +183,14 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     state.param.watch(show_transition, ["transition", "wavelength_nm", "linewidth_mhz"])
     show_transition()
     units = pn.widgets.RadioButtonGroup.from_param(
-        state.param.units, name="Units", sizing_mode="stretch_width")
+        state.param.units, label="Units", sizing_mode="stretch_width")
     units_note = pn.pane.HTML("<span style='font-size:11px;color:#555'>lab: nm, MHz (Γ/2π, "
                               "ω/2π), ns · internal: λ0, Γ0, 1/Γ0</span>")
     color_by = _select(state, "color_by")
     projection = _select(state, "projection", pn.widgets.RadioButtonGroup)
     ff_scale = _select(state, "far_field_scale", pn.widgets.RadioButtonGroup)
 
-    mode = pn.widgets.IntInput(name="Selected mode (↑/↓ to step; 0 = most subradiant)",
+    mode = pn.widgets.IntInput(label="Selected mode (↑/↓ to step; 0 = most subradiant)",
                                value=state.selected_mode, start=0, step=1,
                                sizing_mode="stretch_width")
     mode.param.watch(lambda e: setattr(state, "selected_mode", int(e.new)), "value")
@@ -201,8 +201,8 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         mode.value = state.selected_mode
 
     state.param.watch(mode_from_state, ["selected_mode", "result"])
-    prev_b = pn.widgets.Button(name="◀ less radiant", sizing_mode="stretch_width")
-    next_b = pn.widgets.Button(name="more radiant ▶", sizing_mode="stretch_width")
+    prev_b = pn.widgets.Button(label="◀ less radiant", sizing_mode="stretch_width")
+    next_b = pn.widgets.Button(label="more radiant ▶", sizing_mode="stretch_width")
     prev_b.on_click(lambda e: _step(state, -1))
     next_b.on_click(lambda e: _step(state, +1))
     lens_axis = _select(state, "lens_axis", pn.widgets.RadioButtonGroup)
@@ -210,7 +210,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     download = pn.widgets.FileDownload(
         callback=lambda: io.StringIO(scn.dumps(state.scenario_for_export())),
         filename="choir-scenario.json", label="Download scenario (.json)",
-        button_type="primary", sizing_mode="stretch_width")
+        color="primary", sizing_mode="stretch_width")
     state.param.watch(lambda e: setattr(download, "filename", _slug(e.new) + ".json"),
                       "scenario_name")
     spectrum = pn.widgets.FileDownload(
@@ -219,7 +219,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         filename="choir-spectrum.csv", label="Download spectrum (.csv)",
         sizing_mode="stretch_width")
     upload = pn.widgets.FileInput(accept=".json", multiple=False, sizing_mode="stretch_width",
-                                  name="Open scenario")
+                                  label="Open scenario")
 
     def load_upload(event):
         if not event.new:
@@ -232,7 +232,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         state.apply_scenario(sc)
 
     upload.param.watch(load_upload, "value")
-    undo = pn.widgets.Button(name="Undo last edit", sizing_mode="stretch_width", disabled=True)
+    undo = pn.widgets.Button(label="Undo last edit", sizing_mode="stretch_width", disabled=True)
     undo.on_click(lambda e: state.undo())
     state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
 
@@ -297,7 +297,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
     spectrum, array, far = SpectrumView(state), ArrayView(state), FarFieldView(state)
     sidebar, widgets = _controls(state)
     card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
-    state.param.watch(lambda e: setattr(card, "object", mode_card_html(state)),
+    state.param.watch(lambda *_: setattr(card, "object", mode_card_html(state)),
                       ["result", "mode_result", "selected_mode", "units", "transition",
                        "wavelength_nm", "linewidth_mhz"])
     error = pn.pane.Alert("", alert_type="danger", visible=False, sizing_mode="stretch_width")
@@ -311,7 +311,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         caution.visible = bool(notes)
 
     state.param.watch(show_messages, ["message", "result"])
-    spinner = pn.indicators.LoadingSpinner(value=False, size=22, name="")
+    spinner = pn.indicators.LoadingSpinner(value=False, size=22)
     busy_text = pn.pane.HTML("", styles={"font-size": "13px", "color": "#555"})
 
     def show_busy(*_):

@@ -1,0 +1,90 @@
+"""The explorer page built in-process: views follow the state (common practice, no source)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from app.explorer import build_explorer
+from physics import collected_fraction, scenario as scn
+
+ROOT = Path(__file__).parents[2]
+SCENARIOS = sorted((ROOT / "scenarios").glob("*.json"))
+
+
+@pytest.fixture
+def ring_page():
+    return build_explorer(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_page_builds_for_every_demo_scenario(path):
+    page = build_explorer(scn.load(path))
+    st, views = page.explorer_state, page.explorer_views
+    n = st.result.emitters.n
+    assert len(views["spectrum"].source.data["x"]) == n
+    assert len(views["array"].source.data["x"]) == n
+    assert views["far"].images.data["image"][0].shape == (121, 121)
+    assert st.message == ""
+
+
+def test_tap_on_the_spectrum_selects_a_mode_and_updates_the_other_views(ring_page):
+    st, views = ring_page.explorer_state, ring_page.explorer_views
+    phases_before = np.array(views["array"].source.data["phase"])
+    views["spectrum"].source.selected.indices = [8]
+    assert st.selected_mode == 8
+    assert views["spectrum"].marker.data["x"][0] == views["spectrum"].source.data["x"][8]
+    assert not np.allclose(views["array"].source.data["phase"], phases_before)
+    # the number shown is the physics core's collected fraction of that mode
+    c = st.result.modes.vectors[:, 8]
+    want = collected_fraction(st.result.emitters, c, st.lens_na, "+z")
+    assert f"{100 * want:.3g} %" in views["far"].lens_label.text
+
+
+def test_units_toggle_relabels_axes(ring_page):
+    st, views = ring_page.explorer_state, ring_page.explorer_views
+    assert "MHz" in views["spectrum"].figure.yaxis.axis_label
+    st.units = "internal"
+    assert "Γ0" in views["spectrum"].figure.yaxis.axis_label
+    assert views["array"].figure.xaxis.axis_label == "x [λ0]"
+
+
+def test_drawn_point_becomes_an_explicit_emitter(ring_page):
+    st, views = ring_page.explorer_state, ring_page.explorer_views
+    src = views["array"].source
+    data = {k: list(v) for k, v in src.data.items()}
+    scale = float(st.to_length(1.0))
+    data["x"].append(2.0 * scale)
+    data["y"].append(0.0)
+    for k, v in src.default_values.items():
+        data[k].append(v)
+    src.data = data
+    assert st.lattice == "explicit" and st.result.emitters.n == 10
+    np.testing.assert_allclose(st.result.emitters.positions[-1, :2], [2.0, 0.0], atol=1e-12)
+
+
+def test_download_then_upload_restores_the_page(ring_page):
+    st, widgets = ring_page.explorer_state, ring_page.explorer_views["widgets"]
+    st.selected_mode = 5
+    st.units = "internal"
+    text = widgets["download"].callback().getvalue()
+    assert scn.loads(text) == st.scenario_for_export()
+    fresh = build_explorer()
+    fresh.explorer_views["widgets"]["upload"].value = text.encode()
+    other = fresh.explorer_state
+    assert other.result.emitters == st.result.emitters
+    assert other.selected_mode == 5 and other.units == "internal"
+
+
+def test_bad_upload_shows_a_message_and_keeps_the_session(ring_page):
+    st, widgets = ring_page.explorer_state, ring_page.explorer_views["widgets"]
+    kept = st.result
+    widgets["upload"].value = b'{"format": "choir-scenario", "version": 1, "geometry": 3}'
+    assert st.message.startswith("File not opened")
+    assert st.result is kept
+
+
+def test_spectrum_csv_download_has_a_row_per_mode(ring_page):
+    text = ring_page.explorer_views["widgets"]["spectrum"].callback().getvalue()
+    assert len(text.strip().splitlines()) == 1 + ring_page.explorer_state.result.modes.n

@@ -64,9 +64,10 @@ class SpectrumView:
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
         self.source = ColumnDataSource(dict(x=[], y=[], c=[], mode=[], shift=[], rate=[],
-                                            life=[], pr=[], pk=[], tag=[]))
-        self.marker = ColumnDataSource(dict(x=[], y=[]))
-        p = figure(height=360, sizing_mode="stretch_width", y_axis_type="log",
+                                            life=[], pr=[], pk=[], tag=[]),
+                                       name="choir-spectrum-points")
+        self.marker = ColumnDataSource(dict(x=[], y=[]), name="choir-spectrum-marker")
+        p = figure(height=360, name="choir-spectrum", sizing_mode="stretch_width", y_axis_type="log",
                    tools="pan,wheel_zoom,box_zoom,reset,save", toolbar_location="above",
                    title="Collective spectrum — click a point to select its mode")
         self.mapper = LinearColorMapper(palette=Cividis256)
@@ -157,9 +158,10 @@ class ArrayView:
 
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
-        self.source = ColumnDataSource(dict(x=[], y=[], r=[], phase=[], amp=[], idx=[]))
+        self.source = ColumnDataSource(dict(x=[], y=[], r=[], phase=[], amp=[], idx=[]),
+                                       name="choir-array-points")
         self.source.default_values = {"idx": -1, "r": 0.0, "phase": 0.0, "amp": 0.0}
-        p = figure(height=360, sizing_mode="stretch_width", match_aspect=True,
+        p = figure(height=360, name="choir-array", sizing_mode="stretch_width", match_aspect=True,
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
                    title="Array — selected mode on each emitter")
         self.mapper = LinearColorMapper(palette=PHASE_PALETTE, low=-np.pi, high=np.pi)
@@ -250,10 +252,11 @@ class FarFieldView:
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
         off = 2.0 + self.GAP
-        self.images = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]))
+        self.images = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]),
+                                       name="choir-farfield-images")
         self.lens = ColumnDataSource(dict(x=[], y=[], r=[]))
         p = figure(height=300, sizing_mode="stretch_width", match_aspect=True,
-                   tools="save,reset", toolbar_location="above",
+                   tools="save,reset", name="choir-farfield", toolbar_location="above",
                    x_range=Range1d(-1.15, off + 1.15), y_range=Range1d(-1.25, 1.3),
                    title="Far field of the selected mode, dP/dΩ")
         self.mapper = LinearColorMapper(palette=Inferno256, low=0.0, high=1.0,

@@ -20,7 +20,9 @@ def test_readme_opens_with_a_paragraph_then_two_single_line_commands():
     blocks = _first_two_blocks()
     assert len(blocks) == 2
     assert all("\n" not in b for b in blocks)
-    assert "pytest" in blocks[1]
+    assert "choir serve scenarios/" in blocks[0]
+    script = ROOT / blocks[1].lstrip("./")
+    assert script.is_file() and "pytest" in script.read_text(encoding="utf-8")
 
 
 def test_ci_runs_the_readme_test_command():

@@ -1,0 +1,258 @@
+"""The explorer in a real browser: Playwright driving Debian's headless Chromium.
+
+Recipe (flags, routing of outside requests, clicking glyphs through BokehJS)
+from the project's browser-test notes; common practice, no source.  These
+tests run in CI (`.ci/run` installs Chromium); locally they are skipped when
+no Chromium is installed, and they fail in CI if it is missing.
+"""
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).parents[2]
+ARTIFACTS = ROOT / "artifacts"
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+         "--disable-background-networking", "--disable-component-update", "--disable-sync",
+         "--disable-dev-shm-usage"]
+
+if CHROMIUM is None:
+    if os.environ.get("CI"):
+        raise RuntimeError("Chromium is missing in CI: .ci/run should have installed it")
+    pytest.skip("no chromium on this machine", allow_module_level=True)
+
+sync_api = pytest.importorskip("playwright.sync_api")
+
+pytestmark = pytest.mark.browser
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _start(cmd: list[str], url: str) -> subprocess.Popen:
+    ARTIFACTS.mkdir(exist_ok=True)
+    log = open(ARTIFACTS / f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log", "wb")
+    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
+                            env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
+    log.close()  # the child keeps its own handle
+    deadline = time.time() + 60
+    while time.time() < deadline:
+        if proc.poll() is not None:
+            raise RuntimeError(f"server exited: {Path(log.name).read_text()[-2000:]}")
+        try:
+            with urllib.request.urlopen(url, timeout=2) as r:
+                if r.status == 200:
+                    return proc
+        except OSError:
+            time.sleep(0.3)
+    proc.kill()
+    raise RuntimeError("server did not answer within 60 s")
+
+
+@pytest.fixture(scope="module")
+def server():
+    port = _free_port()
+    cmd = [sys.executable, "-m", "app.cli", "serve", "scenarios/nonagon_ring.json",
+           "--port", str(port)]
+    proc = _start(cmd, f"http://127.0.0.1:{port}/")
+    yield f"http://127.0.0.1:{port}/"
+    proc.terminate()
+    proc.wait(timeout=20)
+
+
+@pytest.fixture(scope="module")
+def browser():
+    with sync_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
+        yield b
+        b.close()
+
+
+class Page:
+    """A browser tab on the explorer that records console errors."""
+
+    def __init__(self, browser, url: str) -> None:
+        self.ctx = browser.new_context(viewport={"width": 1366, "height": 900},
+                                       accept_downloads=True)
+        # the page must work offline: answer every outside request with nothing
+        origin = "/".join(url.split("/")[:3]) + "/"
+        self.ctx.route("**/*", lambda r: r.continue_() if r.request.url.startswith(origin)
+                       else r.fulfill(status=200, body=""))
+        self.page = self.ctx.new_page()
+        self.errors: list[str] = []
+        self.page.on("console", lambda m: self.errors.append(m.text) if m.type == "error" else None)
+        self.page.on("pageerror", lambda e: self.errors.append(str(e)))
+        self.page.goto(url, wait_until="domcontentloaded")
+        self.wait_for_points(lambda n: n > 0)
+
+    def js(self, body: str, arg=None):
+        return self.page.evaluate(f"(arg) => {{ const doc = Bokeh.documents[0]; {body} }}", arg)
+
+    def data(self, name: str, column: str) -> list:
+        return self.js(f"return Array.from(doc.get_model_by_name('{name}').data['{column}'])")
+
+    def wait_for_points(self, ok, timeout: float = 60.0) -> int:
+        deadline = time.time() + timeout
+        while time.time() < deadline:
+            try:
+                n = self.js("const s = doc && doc.get_model_by_name('choir-spectrum-points');"
+                            "return s ? s.data.x.length : -1")
+            except sync_api.Error:
+                n = -1
+            if n >= 0 and ok(n):
+                return n
+            time.sleep(0.2)
+        raise AssertionError("spectrum did not reach the expected number of points")
+
+    def wait_for(self, body: str, arg=None, timeout: float = 60.0):
+        deadline = time.time() + timeout
+        while time.time() < deadline:
+            value = self.js(body, arg)
+            if value:
+                return value
+            time.sleep(0.2)
+        raise AssertionError(f"timed out waiting for: {body}")
+
+    def screen_xy(self, figure: str, x: float, y: float) -> tuple[float, float]:
+        return tuple(self.js(
+            f"const v = Bokeh.index.find_one(doc.get_model_by_name('{figure}'));"
+            "const r = v.canvas_view.el.getBoundingClientRect();"
+            "return [r.left + v.frame.x_scale.compute(arg[0]),"
+            "        r.top + v.frame.y_scale.compute(arg[1])]", [x, y]))
+
+    def text(self) -> str:
+        """All visible text, shadow roots included, whitespace folded."""
+        raw = self.page.evaluate(
+            "() => { const out = []; const walk = (n) => {"
+            " if (n.nodeName === 'STYLE' || n.nodeName === 'SCRIPT') return;"
+            " if (n.shadowRoot) walk(n.shadowRoot);"
+            " for (const c of n.childNodes) { if (c.nodeType === 3) out.push(c.textContent);"
+            " else walk(c); } }; walk(document.body); return out.join(' '); }")
+        return " ".join(raw.split())
+
+    def close(self) -> None:
+        self.ctx.close()
+
+
+@pytest.fixture
+def tab(browser, server):
+    t = Page(browser, server)
+    yield t
+    errors = t.errors
+    t.close()
+    assert errors == [], f"JavaScript errors: {errors}"
+
+
+
+def test_page_opens_on_the_demo_scenario_and_shows_the_caution(tab):
+    assert tab.wait_for_points(lambda n: n == 9) == 9
+    text = tab.text()
+    assert "Nine-atom ring" in text and "Model." in text and "two-level" in text
+    ARTIFACTS.mkdir(exist_ok=True)
+    time.sleep(1.0)  # let the far field paint
+    tab.page.screenshot(path=str(ARTIFACTS / "explorer.png"), full_page=True)
+
+
+def test_spacing_slider_moves_the_spectrum(tab):
+    before = tab.data("choir-spectrum-points", "x")
+    find = "Array.from(doc.all_models).find(m => m.title === 'Spacing a [λ0]')"
+    start = tab.js(f"return {find}.value")
+    assert start == pytest.approx(0.25)  # the demo file's spacing
+    tab.js(f"Bokeh.index.find_one({find}).shadow_el.querySelector('.noUi-handle').focus();")
+    for _ in range(10):
+        tab.page.keyboard.press("ArrowRight")
+    tab.wait_for(f"return {find}.value > arg + 1e-9", start)
+    tab.wait_for("const x = doc.get_model_by_name('choir-spectrum-points').data.x;"
+                 "return Math.abs(x[0] - arg[0]) > 1e-9", before)
+    assert "a = 0.250" not in tab.text()
+
+
+def test_clicking_a_spectrum_point_selects_that_mode(tab):
+    xs = tab.data("choir-spectrum-points", "x")
+    ys = tab.data("choir-spectrum-points", "y")
+    phases = tab.data("choir-array-points", "phase")
+    # a mode whose point no other covers (the ring's modes come in degenerate pairs)
+    k = max(i for i in range(len(xs)) if i > 0 and all(
+        abs(xs[i] - xs[j]) + abs(ys[i] - ys[j]) > 1e-6 * (abs(xs[i]) + abs(ys[i]))
+        for j in range(len(xs)) if j != i))
+    sx, sy = tab.screen_xy("choir-spectrum", xs[k], ys[k])
+    tab.page.mouse.click(sx, sy)
+    tab.wait_for("const m = doc.get_model_by_name('choir-spectrum-marker').data.x;"
+                 "return m.length && Math.abs(m[0] - arg) < 1e-12", xs[k])
+    tab.wait_for("const p = doc.get_model_by_name('choir-array-points').data.phase;"
+                 "return p.some((v, i) => Math.abs(v - arg[i]) > 1e-6)", phases)
+    deadline = time.time() + 20
+    while f"Mode {k} of 9" not in tab.text() and time.time() < deadline:
+        time.sleep(0.2)
+    assert f"Mode {k} of 9" in tab.text()
+
+
+def test_adding_an_emitter_with_the_drawing_tool(tab):
+    tab.page.locator("[title^='Edit emitters']").first.click()
+    scale = tab.js("const s = doc.get_model_by_name('choir-array-points').data;"
+                   "return Math.max(...s.x.map(Math.abs))")
+    sx, sy = tab.screen_xy("choir-array", 0.0, 0.0)  # the ring's empty centre
+    tab.page.mouse.click(sx, sy)
+    assert tab.wait_for_points(lambda n: n == 10) == 10
+    assert scale > 0
+    deadline = time.time() + 20
+    while "N = 10" not in tab.text() and time.time() < deadline:
+        time.sleep(0.2)
+    assert "N = 10" in tab.text()
+
+
+def test_download_and_upload_reproduce_the_state(tab, browser, server, tmp_path):
+    xs = tab.data("choir-spectrum-points", "x")
+    tab.page.get_by_text("more radiant ▶").click()  # step from mode 0 to mode 1 …
+    tab.page.get_by_text("more radiant ▶").click()  # … and to mode 2
+    tab.page.get_by_text("more radiant ▶").click()  # … and to mode 3
+    tab.wait_for("const m = doc.get_model_by_name('choir-spectrum-marker').data.x;"
+                 "return m.length && Math.abs(m[0] - arg) < 1e-12", xs[3])
+    with tab.page.expect_download() as info:
+        tab.page.get_by_text("Download scenario (.json)").click()
+    path = tmp_path / "shared.json"
+    info.value.save_as(path)
+    doc = json.loads(path.read_text())
+    assert doc["format"] == "choir-scenario"
+    assert doc["analysis"]["selected_mode"] == 3
+    assert doc["geometry"]["lattice"] == "ring" and doc["geometry"]["n"] == 9
+
+    other = Page(browser, server)
+    try:
+        other.page.locator("input[type=file]").set_input_files(str(path))
+        other.wait_for("return doc.get_model_by_name('choir-spectrum-marker').data.x[0] === arg",
+                       xs[3])
+        assert other.data("choir-spectrum-points", "x") == xs
+        assert other.data("choir-array-points", "phase") == tab.data("choir-array-points", "phase")
+        assert other.errors == []
+    finally:
+        other.close()
+
+
+def test_panel_serve_runs_the_same_explorer(browser):
+    port = _free_port()
+    cmd = [sys.executable, "-m", "panel", "serve", "app/serve_app.py", "--port", str(port),
+           "--address", "127.0.0.1", "--allow-websocket-origin", f"127.0.0.1:{port}",
+           "--args", "scenarios/subradiant_chain.json"]
+    proc = _start(cmd, f"http://127.0.0.1:{port}/serve_app")
+    try:
+        t = Page(browser, f"http://127.0.0.1:{port}/serve_app")
+        assert t.wait_for_points(lambda n: n == 60) == 60
+        assert t.errors == []
+        t.close()
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)

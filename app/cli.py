@@ -15,9 +15,8 @@ import numpy as np
 from physics import scenario as scn
 from physics.exports import far_field_csv, spectrum_csv
 from physics.far_field import collected_fraction
-from physics.hamiltonian import coupling_matrix
 from physics.lattices import GENERATORS
-from physics.modes import DefectiveMatrixWarning, modes_from_matrix
+from physics.modes import DefectiveMatrixWarning, solve_modes
 from physics.units import TRANSITIONS
 
 __all__ = ["main"]
@@ -103,10 +102,9 @@ def cmd_solve(args) -> int:
     sc = _load(args.scenario)
     em = sc.emitters()
     tr = sc.transition
-    H = coupling_matrix(em, sc.environment_model())
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", DefectiveMatrixWarning)
-        modes = modes_from_matrix(H)
+        modes = solve_modes(em, sc.environment_model())
     out = Path(args.out) if args.out else Path(Path(args.scenario).stem + "-results")
     try:
         out.mkdir(parents=True, exist_ok=True)

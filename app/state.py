@@ -19,8 +19,7 @@ import param
 from physics import scenario as scn
 from physics.far_field import collected_fraction, far_field_image
 from physics.geometry import Emitters, nearest_neighbour_distance
-from physics.hamiltonian import coupling_matrix
-from physics.modes import DefectiveMatrixWarning, Modes, modes_from_matrix
+from physics.modes import DefectiveMatrixWarning, Modes, solve_modes
 from physics.units import TRANSITIONS, Transition
 
 __all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
@@ -50,7 +49,6 @@ class Result:
     generation: int
     scenario: scn.Scenario
     emitters: Emitters
-    coupling: np.ndarray
     modes: Modes
     warnings: tuple[str, ...]
 
@@ -307,12 +305,11 @@ class ExplorerState(param.Parameterized):
 
         try:
             em = sc.emitters()
-            H = coupling_matrix(em, sc.environment_model())
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", DefectiveMatrixWarning)
-                modes = modes_from_matrix(H)
+                modes = solve_modes(em, sc.environment_model())
             notes = tuple(str(w.message) for w in caught)
-            return Result(gen, sc, em, H, modes, notes)
+            return Result(gen, sc, em, modes, notes)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
 

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .free_space import K0
-from .geometry import Emitters
+from .geometry import Emitters, grid_indices
 
 __all__ = [
     "far_field_power",
@@ -73,17 +73,46 @@ def far_field_power(em: Emitters, amplitudes: np.ndarray, directions: np.ndarray
     if n_hat.shape[-1] != 3:
         raise ValueError(f"directions: expected shape (M, 3), got {n_hat.shape}")
     n_hat = n_hat / np.linalg.norm(n_hat, axis=1, keepdims=True)
-    # centre the array: a global phase changes nothing but keeps phases small
-    pos = em.positions - em.positions.mean(axis=0)
-    weighted = c[:, None] * em.dipoles  # (N, 3)
-    out = np.empty(n_hat.shape[0])
-    step = max(1, _CHUNK_ELEMENTS // max(em.n, 1))
+    field = _phase_sum(em.positions, c[:, None] * em.dipoles, n_hat)
+    field -= n_hat * np.sum(n_hat * field, axis=1, keepdims=True)
+    return _PREF * np.sum(np.abs(field) ** 2, axis=1)
+
+
+def _phase_sum(positions: np.ndarray, weighted: np.ndarray, n_hat: np.ndarray) -> np.ndarray:
+    """F(n̂) = Σ_j w_j e^{−ik0 n̂·r_j}, (M, 3), up to a global phase per direction.
+
+    On a grid r_j = r_min + (k_x s_x, k_y s_y, k_z s_z) the phase factor
+    separates into three one-dimensional factors, so only (K_x + K_y + K_z)
+    exponentials per direction are needed instead of N (the sum itself is a
+    few matrix products).  Other arrangements use the direct sum.
+    """
+    n = positions.shape[0]
+    grid = grid_indices(positions) if n >= 16 else None
+    if grid is not None:
+        kk, steps = grid
+        dims = kk.max(axis=0) + 1
+        if np.prod(dims) > 8 * n:  # beyond this the direct sum is cheaper
+            grid = None
+    out = np.empty((n_hat.shape[0], 3), dtype=complex)
+    if grid is None:
+        pos = positions - positions.mean(axis=0)  # small phases
+        step = max(1, _CHUNK_ELEMENTS // max(n, 1))
+        for s in range(0, n_hat.shape[0], step):
+            nb = n_hat[s:s + step]
+            out[s:s + step] = np.exp(-1j * K0 * (nb @ pos.T)) @ weighted
+        return out
+    kx, ky, kz = dims
+    coeff = np.zeros((kx, ky, kz, 3), dtype=complex)
+    coeff[kk[:, 0], kk[:, 1], kk[:, 2]] = weighted
+    coeff = coeff.reshape(kx, ky * kz * 3)
+    axes = [np.arange(d) * st for d, st in zip(dims, steps)]
+    step = max(1, _CHUNK_ELEMENTS // int(np.prod(dims) * 3))
     for s in range(0, n_hat.shape[0], step):
         nb = n_hat[s:s + step]
-        phase = np.exp(-1j * K0 * (nb @ pos.T))  # (m, N)
-        field = phase @ weighted  # (m, 3)
-        field -= nb * np.sum(nb * field, axis=1, keepdims=True)
-        out[s:s + step] = _PREF * np.sum(np.abs(field) ** 2, axis=1)
+        fx, fy, fz = (np.exp(-1j * K0 * np.outer(nb[:, c], axes[c])) for c in range(3))
+        t = (fx @ coeff).reshape(-1, ky, kz * 3)
+        t = np.einsum("qb,qbr->qr", fy, t).reshape(-1, kz, 3)
+        out[s:s + step] = np.einsum("qc,qcd->qd", fz, t)
     return out
 
 

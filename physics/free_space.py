@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .geometry import Emitters
+from .geometry import Emitters, grid_indices
 
 __all__ = ["K0", "FreeSpace", "greens_tensor", "pair_coupling"]
 
@@ -96,29 +96,6 @@ def pair_coupling(r_vec: np.ndarray, d_i: np.ndarray, d_j: np.ndarray) -> np.nda
     return -0.75 * e * (a * dd + b * proj)
 
 
-def _axis_steps(x: np.ndarray) -> tuple[np.ndarray, float] | None:
-    """Integer grid indices k and step s with x = x.min() + s·k, or None."""
-    lo = x.min()
-    span = x.max() - lo
-    if span <= 1e-12:
-        return np.zeros(x.shape, dtype=np.int64), 1.0
-    # smallest gap between distinct coordinates (gaps below 1e-9·span are
-    # round-off), then the step that fits a whole number of times into the span:
-    # rounding to fixed decimals instead fails at small spacings (k·1e-10 error)
-    # and at large coordinates (round-off straddling a rounding boundary)
-    gaps = np.diff(np.sort(x))
-    step = gaps[gaps > 1e-9 * span].min()
-    step = span / np.round(span / step)
-    k = (x - lo) / step
-    kr = np.round(k)
-    if not np.allclose(k, kr, rtol=0.0, atol=1e-7) or kr.max() > 1e6:
-        return None
-    step = float(np.dot(kr, x - lo) / np.dot(kr, kr))  # least-squares step: no rounding error
-    if not np.allclose(lo + step * kr, x, rtol=0.0, atol=1e-12 * max(1.0, span)):
-        return None
-    return kr.astype(np.int64), step
-
-
 def _lattice_gather(em: Emitters) -> np.ndarray | None:
     """H off-diagonal by evaluating G once per distinct displacement, or None.
 
@@ -129,12 +106,12 @@ def _lattice_gather(em: Emitters) -> np.ndarray | None:
     d = em.uniform_dipole
     if d is None or em.n < 64:
         return None
-    grids = [_axis_steps(em.positions[:, c]) for c in range(3)]
-    if any(g is None for g in grids):
+    grid = grid_indices(em.positions)
+    if grid is None:
         return None
-    ks = [g[0] for g in grids]
-    steps = np.array([g[1] for g in grids])
-    m = np.array([k.max() for k in ks])
+    kk, steps = grid
+    ks = [kk[:, 0], kk[:, 1], kk[:, 2]]
+    m = kk.max(axis=0)
     shape = 2 * m + 1
     if np.prod(shape) > em.n * em.n // 4:
         return None
@@ -161,6 +138,10 @@ class FreeSpace:
     ----------
     Lehmberg, Phys. Rev. A 2, 883 (1970); Ficek & Tanaś, Phys. Rep. 372, 369 (2002).
     """
+
+    #: Free space is isotropic: every point operation leaves G covariant.
+    symmetry_operations = ("mirror x", "mirror y", "mirror z", "C2 z", "C2 x", "C2 y",
+                           "inversion")
 
     def coupling(self, em: Emitters) -> np.ndarray:
         """Full (N, N) complex coupling matrix [Γ0], diagonal included.

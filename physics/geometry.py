@@ -19,6 +19,7 @@ __all__ = [
     "polar_dipole",
     "MIN_DISTANCE",
     "nearest_neighbour_distance",
+    "grid_indices",
 ]
 
 #: Smallest separation between two emitters [λ0].  Below it the near-field
@@ -194,3 +195,39 @@ def nearest_neighbour_distance(em: Emitters) -> float:
 
     dist, _ = cKDTree(em.positions).query(em.positions, k=2)
     return float(dist[:, 1].min())
+
+
+def _axis_steps(x: np.ndarray) -> tuple[np.ndarray, float] | None:
+    """Integer grid indices k and step s with x = x.min() + s·k, or None."""
+    lo = x.min()
+    span = x.max() - lo
+    if span <= 1e-12:
+        return np.zeros(x.shape, dtype=np.int64), 1.0
+    # smallest gap between distinct coordinates (gaps below 1e-9·span are
+    # round-off), then the step that fits a whole number of times into the span:
+    # rounding to fixed decimals instead fails at small spacings (k·1e-10 error)
+    # and at large coordinates (round-off straddling a rounding boundary)
+    gaps = np.diff(np.sort(x))
+    step = gaps[gaps > 1e-9 * span].min()
+    step = span / np.round(span / step)
+    k = (x - lo) / step
+    kr = np.round(k)
+    if not np.allclose(k, kr, rtol=0.0, atol=1e-7) or kr.max() > 1e6:
+        return None
+    step = float(np.dot(kr, x - lo) / np.dot(kr, kr))  # least-squares step: no rounding error
+    if not np.allclose(lo + step * kr, x, rtol=0.0, atol=1e-12 * max(1.0, span)):
+        return None
+    return kr.astype(np.int64), step
+
+
+def grid_indices(positions: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Integer indices k (N, 3) and steps s (3,) [λ0] with r = r_min + k·s, or None.
+
+    Every generated lattice (square, triangular, honeycomb, kagome, cubic,
+    disks, chains) lies on such a grid per axis, possibly with empty sites;
+    rings and drawn arrangements usually do not.
+    """
+    out = [_axis_steps(positions[:, c]) for c in range(3)]
+    if any(o is None for o in out):
+        return None
+    return np.stack([o[0] for o in out], axis=1), np.array([o[1] for o in out])

@@ -13,6 +13,7 @@ from scipy.spatial import cKDTree
 
 from .geometry import Emitters
 from .hamiltonian import Environment, coupling_matrix
+from .symmetry import SymmetryGroup, find_symmetry
 
 __all__ = ["Modes", "DefectiveMatrixWarning", "solve_modes", "modes_from_matrix",
            "PETERMANN_WARN", "radiance_label", "SUBRADIANT_BELOW", "SUPERRADIANT_ABOVE"]
@@ -62,16 +63,27 @@ class Modes:
     cluster : (N,) int ndarray
         Label of the (numerically) degenerate eigenspace each mode belongs to;
         right eigenvectors within one are orthonormal.
+    sector, sector_names
+        Symmetry sector index of each mode and the readable name of each sector.
     """
 
     eigenvalues: np.ndarray
     vectors: np.ndarray
     left_vectors: np.ndarray
     cluster: np.ndarray | None = None
+    sector: np.ndarray | None = None
+    sector_names: tuple[str, ...] = ("no symmetry used",)
 
     def __post_init__(self) -> None:
+        n = self.eigenvalues.shape[0]
         if self.cluster is None:
-            object.__setattr__(self, "cluster", np.arange(self.eigenvalues.shape[0]))
+            object.__setattr__(self, "cluster", np.arange(n))
+        if self.sector is None:
+            object.__setattr__(self, "sector", np.zeros(n, dtype=int))
+
+    def symmetry_label(self, m: int) -> str:
+        """Parities of mode m under the symmetries used, e.g. 'mirror x: even, mirror y: odd'."""
+        return self.sector_names[int(self.sector[m])]
 
     @property
     def multiplicity(self) -> np.ndarray:
@@ -157,7 +169,31 @@ def _degenerate_clusters(w: np.ndarray, tol: float) -> np.ndarray:
     return connected_components(graph, directed=False)[1]
 
 
-def modes_from_matrix(H: np.ndarray) -> Modes:
+def _diagonalise(H: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Eigenvalues, right vectors (orthonormal in degenerate spaces), left vectors = rows of V⁻¹."""
+    w, vr = scipy.linalg.eig(H, right=True, left=False, check_finite=False)
+    scale = max(1.0, float(np.max(np.abs(w)))) if w.size else 1.0
+    cluster = _degenerate_clusters(w, DEGENERACY_TOL * scale)
+    sizes = np.bincount(cluster)
+    for label in np.flatnonzero(sizes > 1):
+        idx = np.flatnonzero(cluster == label)
+        q = np.linalg.qr(vr[:, idx])[0]
+        # a true eigenspace stays one after orthonormalising; near an exceptional
+        # point the vectors are (nearly) parallel and QR would leave it
+        if np.max(np.abs(H @ q - q * w[idx])) <= 1e3 * DEGENERACY_TOL * scale:
+            vr[:, idx] = q
+    vr = vr / np.linalg.norm(vr, axis=0)
+    try:
+        vl = np.linalg.inv(vr).conj().T
+    except np.linalg.LinAlgError:  # exactly singular: defective, warned by the caller
+        _, vl, _ = scipy.linalg.eig(H, right=True, left=True, check_finite=False)
+        overlap = np.sum(vl.conj() * vr, axis=0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            vl = vl / overlap.conj()
+    return w, vr, vl
+
+
+def modes_from_matrix(H: np.ndarray, symmetry: SymmetryGroup | None = None) -> Modes:
     """Diagonalise a coupling matrix and order the modes by decay rate.
 
     Right eigenvectors come from LAPACK; inside each (numerically) degenerate
@@ -165,6 +201,13 @@ def modes_from_matrix(H: np.ndarray) -> Modes:
     figures below independent of LAPACK's arbitrary basis.  Left eigenvectors
     are the rows of V⁻¹, so l_m† c_n = δ_mn holds by construction (scaling
     separately computed left vectors is not enough inside degenerate spaces).
+
+    Parameters
+    ----------
+    H : (N, N) complex ndarray [Γ0]
+    symmetry : SymmetryGroup, optional
+        Symmetries H commutes with (see :func:`physics.symmetry.find_symmetry`);
+        each sector is diagonalised on its own and every mode is labelled.
 
     Warns
     -----
@@ -177,31 +220,34 @@ def modes_from_matrix(H: np.ndarray) -> Modes:
     H = np.asarray(H, dtype=complex)
     if H.ndim != 2 or H.shape[0] != H.shape[1]:
         raise ValueError(f"coupling matrix must be square, got shape {H.shape}")
-    w, vr = scipy.linalg.eig(H, right=True, left=False, check_finite=False)
+    if symmetry is None:
+        w, vr, vl = _diagonalise(H)
+        sector = np.zeros(w.size, dtype=int)
+        names: tuple[str, ...] = ("no symmetry used",)
+    else:
+        parts, names_list = [], []
+        for k, sec in enumerate(symmetry.sectors()):
+            ws, vs, ls = _diagonalise(symmetry.block(H, sec))
+            parts.append((ws, symmetry.lift(vs, sec), symmetry.lift(ls, sec),
+                          np.full(ws.size, k)))
+            names_list.append(symmetry.labels(sec.parities))
+        w = np.concatenate([p[0] for p in parts])
+        vr = np.concatenate([p[1] for p in parts], axis=1)
+        vl = np.concatenate([p[2] for p in parts], axis=1)
+        sector = np.concatenate([p[3] for p in parts])
+        names = tuple(names_list)
     order = np.lexsort((w.real, -w.imag))
-    w, vr = w[order], vr[:, order]
+    w, vr, vl, sector = w[order], vr[:, order], vl[:, order], sector[order]
     scale = max(1.0, float(np.max(np.abs(w))))
     cluster = _degenerate_clusters(w, DEGENERACY_TOL * scale)
-    sizes = np.bincount(cluster)
-    for label in np.flatnonzero(sizes > 1):
+    # average the Petermann factor only over spaces that really are orthonormal
+    for label in np.flatnonzero(np.bincount(cluster) > 1):
         idx = np.flatnonzero(cluster == label)
-        q = np.linalg.qr(vr[:, idx])[0]
-        # a true eigenspace stays one after orthonormalising; near an exceptional
-        # point the vectors are (nearly) parallel and QR would leave it
-        if np.max(np.abs(H @ q - q * w[idx])) <= 1e3 * DEGENERACY_TOL * scale:
-            vr[:, idx] = q
-        else:
-            cluster[idx] = idx + w.size  # not a usable eigenspace: no averaging
-    vr = vr / np.linalg.norm(vr, axis=0)
-    try:
-        vl = np.linalg.inv(vr).conj().T
-    except np.linalg.LinAlgError:  # exactly singular: defective, warned below
-        _, vl_raw, _ = scipy.linalg.eig(H, right=True, left=True, check_finite=False)
-        vl = vl_raw[:, order]
-        overlap = np.sum(vl.conj() * vr, axis=0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            vl = vl / overlap.conj()
-    modes = Modes(eigenvalues=w, vectors=vr, left_vectors=vl, cluster=cluster)
+        gram = vr[:, idx].conj().T @ vr[:, idx]
+        if np.max(np.abs(gram - np.eye(idx.size))) > 1e-6:
+            cluster[idx] = idx + w.size
+    modes = Modes(eigenvalues=w, vectors=vr, left_vectors=vl, cluster=cluster,
+                  sector=sector, sector_names=names)
     worst = np.max(np.where(np.isfinite(modes.petermann), modes.petermann, np.inf))
     if worst > PETERMANN_WARN:
         warnings.warn(
@@ -215,8 +261,13 @@ def modes_from_matrix(H: np.ndarray) -> Modes:
     return modes
 
 
-def solve_modes(em: Emitters, environment: Environment) -> Modes:
+def solve_modes(em: Emitters, environment: Environment, *, use_symmetry: bool = True) -> Modes:
     """Collective modes of ``em`` in ``environment``.
+
+    Mirror and two-fold rotation symmetries of the arrangement that the
+    environment respects (``environment.symmetry_operations``) are found
+    automatically and used to split H into blocks; ``use_symmetry=False``
+    diagonalises the full matrix.
 
     Returns
     -------
@@ -224,4 +275,8 @@ def solve_modes(em: Emitters, environment: Environment) -> Modes:
         Eigenvalues ω_m − iΓ_m/2 [Γ0] by ascending decay rate, right
         eigenvectors (unit 2-norm) and biorthogonal left eigenvectors.
     """
-    return modes_from_matrix(coupling_matrix(em, environment))
+    H = coupling_matrix(em, environment)
+    group = None
+    if use_symmetry:
+        group = find_symmetry(em, tuple(getattr(environment, "symmetry_operations", ())))
+    return modes_from_matrix(H, group)

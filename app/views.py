@@ -64,7 +64,7 @@ class SpectrumView:
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
         self.source = ColumnDataSource(dict(x=[], y=[], c=[], mode=[], shift=[], rate=[],
-                                            life=[], pr=[], pk=[], tag=[]),
+                                            life=[], pr=[], pk=[], tag=[], sym=[]),
                                        name="choir-spectrum-points")
         self.marker = ColumnDataSource(dict(x=[], y=[]), name="choir-spectrum-marker")
         p = figure(height=360, name="choir-spectrum", sizing_mode="stretch_width", y_axis_type="log",
@@ -80,7 +80,7 @@ class SpectrumView:
         p.add_tools(HoverTool(renderers=[r], tooltips=[
             ("mode", "@mode (@tag)"), ("shift", "@shift"), ("decay rate", "@rate"),
             ("lifetime", "@life"), ("participation ratio", "@pr{0.0}"),
-            ("Petermann factor", "@pk{0.000}")]))
+            ("Petermann factor", "@pk{0.000}"), ("symmetry", "@sym")]))
         p.add_tools(TapTool(renderers=[r]))
         self.single = Span(location=1.0, dimension="width", line_dash="dashed",
                            line_color="#666666", line_width=1)
@@ -116,7 +116,8 @@ class SpectrumView:
         self.source.data = dict(
             x=x, y=y, c=fig, mode=np.arange(m.n), shift=[_fmt(v, fu) for v in x],
             rate=rate_txt, life=[_fmt(v, tu) for v in life], pr=m.participation_ratio,
-            pk=m.petermann, tag=[radiance_label(r) for r in rates])
+            pk=m.petermann, tag=[radiance_label(r) for r in rates],
+            sym=[m.sector_names[s] for s in m.sector])
         lo, hi = float(np.nanmin(fig)), float(np.nanmax(fig))
         if hi - lo < 1e-12:
             hi = lo + 1.0
@@ -335,6 +336,8 @@ def mode_card_html(state: ExplorerState) -> str:
     ]
     if m.multiplicity[k] > 1:
         rows.append(("degeneracy", f"{m.multiplicity[k]}-fold"))
+    if m.sector_names != ("no symmetry used",):
+        rows.append(("symmetry", m.symmetry_label(k)))
     if mres is not None and mres.mode == k:
         rows.append((f"lens NA {mres.na:.2f}", f"{100 * mres.collected_up:.3g} % along +z, "
                      f"{100 * mres.collected_down:.3g} % along −z"))

@@ -286,10 +286,18 @@ _URL_KEYS = {"lattice": "lattice", "n": "n", "nx": "nx", "ny": "ny", "nz": "nz",
              "transition": "line", "units": "units", "lens_na": "na", "selected_mode": "mode"}
 
 
+def _url_refused(state: ExplorerState):
+    def report(values: dict) -> None:
+        state.message = ("Some settings in the page address were not applied (out of range or "
+                         "unknown): " + ", ".join(f"{k} = {v!r}" for k, v in values.items()))
+    return report
+
+
 def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None):
     """One explorer page (a Panel layout) with its own session state."""
     doc = pn.state.curdoc
-    served = doc is not None and pn.state.served
+    # a live server session (choir serve, panel serve), not a notebook or a test
+    served = doc is not None and getattr(doc, "session_context", None) is not None
     if state is None:
         state = ExplorerState(runner=ServerRunner(doc) if served else None)
         if scenario is not None:
@@ -366,7 +374,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
             state.solve()
 
         if pn.state.location is not None:
-            pn.state.location.sync(state, {k: v for k, v in _URL_KEYS.items()})
+            pn.state.location.sync(state, dict(_URL_KEYS), on_error=_url_refused(state))
         pn.state.onload(start)
     else:
         state.solve()

@@ -157,7 +157,6 @@ class ExplorerState(param.Parameterized):
         self._mode_generation = 0
         self._undo: list[scn.Scenario] = []
         self._applying = False
-        self._pending_mode: int | None = None
         self._seed: int | None = None
         if scenario is not None:
             self.apply_scenario(scenario, solve=False)
@@ -262,14 +261,13 @@ class ExplorerState(param.Parameterized):
                        linewidth_mhz=tr.linewidth_mhz)
         upd.update(units=sc.display_units, color_by=sc.color_by, lens_na=sc.lens_na,
                    lens_axis=sc.lens_axis, scenario_name=sc.name, description=sc.description,
-                   message="")
+                   selected_mode=sc.selected_mode, message="")
         self._seed = sc.seed
         self._applying = True
         try:
             self.param.update(**upd)
         finally:
             self._applying = False
-        self._pending_mode = sc.selected_mode
         if solve:
             self.solve()
 
@@ -320,9 +318,7 @@ class ExplorerState(param.Parameterized):
             return
         if res.generation != self._generation:
             return  # a newer request is on its way
-        pending, self._pending_mode = self._pending_mode, None
-        mode = self.selected_mode if pending is None else pending
-        mode = min(mode, res.modes.n - 1)
+        mode = min(self.selected_mode, res.modes.n - 1)
         self.message = ""
         self.busy = False
         self.result = res
@@ -398,7 +394,7 @@ class ExplorerState(param.Parameterized):
             upd["dipoles_explicit"] = np.where((origin >= 0)[:, None],
                                                old[np.clip(origin, 0, None)], old[0])
         try:
-            before = self.to_scenario()
+            before = self.scenario_for_export()
             trial = self._document(positions=positions, dipoles=upd.get("dipoles_explicit"))
             scn.from_dict(trial)  # refuse before changing anything: a bad edit loses nothing
         except scn.ScenarioError as exc:

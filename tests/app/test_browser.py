@@ -256,3 +256,23 @@ def test_panel_serve_runs_the_same_explorer(browser):
     finally:
         proc.terminate()
         proc.wait(timeout=20)
+
+
+def test_a_link_reopens_the_same_view(browser, server):
+    """The address carries the generator parameters (and the selected mode)."""
+    t = Page(browser, server + "?lattice=chain&n=12&a=0.4&dipole=z&mode=2")
+    try:
+        assert t.wait_for_points(lambda n: n == 12) == 12
+        xs = t.data("choir-spectrum-points", "x")
+        t.wait_for("return doc.get_model_by_name('choir-spectrum-marker').data.x[0] === arg", xs[2])
+        t.page.get_by_text("more radiant ▶").click()
+        t.wait_for("return doc.get_model_by_name('choir-spectrum-marker').data.x[0] === arg", xs[3])
+        deadline = time.time() + 20
+        search = ""
+        while "mode=3" not in search and time.time() < deadline:
+            search = t.page.evaluate("() => window.location.search")
+            time.sleep(0.2)
+        assert "lattice=chain" in search and "mode=3" in search, search
+        assert t.errors == []
+    finally:
+        t.close()

@@ -6,6 +6,7 @@ app/serve_app.py`` serves, and what ``explorer()`` shows inline in a notebook.
 """
 from __future__ import annotations
 
+import html
 import io
 import os
 import re
@@ -327,16 +328,20 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         busy_text.object = "computing…" if state.busy else ""
 
     state.param.watch(show_busy, "busy")
-    title = state.scenario_name
     heading = pn.pane.HTML(
         "<div style='display:flex;align-items:baseline;gap:14px'>"
         "<span style='font-size:22px;font-weight:700;color:#4a148c'>Choir</span>"
         "<span style='font-size:14px;color:#555'>collective modes of emitter arrays</span></div>",
         sizing_mode="stretch_width")
-    name_pane = pn.pane.HTML(f"<span style='font-size:13px'>{title}</span>")
-    state.param.watch(lambda e: setattr(name_pane, "object",
-                                        f"<span style='font-size:13px'>{e.new}</span>"),
-                      "scenario_name")
+    name_pane = pn.pane.HTML("", styles={"font-size": "13px"})
+
+    def show_name(*_):
+        name = html.escape(state.scenario_name) or "untitled scenario"
+        tail = " <i style='color:#8e24aa'>(modified)</i>" if state.is_modified() else ""
+        name_pane.object = f"<span>{name}{tail}</span>"
+
+    state.param.watch(show_name, ["scenario_name", "result"])
+    show_name()
     header = pn.Row(heading, name_pane, pn.layout.HSpacer(), busy_text, spinner,
                     sizing_mode="stretch_width", styles={"border-bottom": "2px solid #d1c4e9"})
     model = pn.pane.Markdown(MODEL_NOTE, sizing_mode="stretch_width",

@@ -127,7 +127,10 @@ class ExplorerState(param.Parameterized):
     units = param.Selector(objects=["lab", "internal"], default="lab",
                            doc="Display units (no unit): lab = nm, MHz, ns; internal = λ0, Γ0, 1/Γ0")
     # --- analysis and display -------------------------------------------
-    color_by = param.Selector(objects=["participation_ratio", "petermann", "shift", "decay_rate"],
+    color_by = param.Selector(objects={"participation ratio": "participation_ratio",
+                                       "Petermann factor": "petermann",
+                                       "collective shift": "shift",
+                                       "decay rate (log)": "decay_rate"},
                               default="participation_ratio", doc="Mode figure for the "
                               "spectrum colours (no unit)")
     selected_mode = param.Integer(0, bounds=(0, 9999),
@@ -157,6 +160,7 @@ class ExplorerState(param.Parameterized):
         self._mode_generation = 0
         self._undo: list[scn.Scenario] = []
         self._applying = False
+        self._loaded: scn.Scenario | None = None
         self._seed: int | None = None
         if scenario is not None:
             self.apply_scenario(scenario, solve=False)
@@ -263,6 +267,7 @@ class ExplorerState(param.Parameterized):
                    lens_axis=sc.lens_axis, scenario_name=sc.name, description=sc.description,
                    selected_mode=sc.selected_mode, message="")
         self._seed = sc.seed
+        self._loaded = sc
         self._applying = True
         try:
             self.param.update(**upd)
@@ -368,6 +373,17 @@ class ExplorerState(param.Parameterized):
                 f"(level structure, finite size, motion), so treat shifts with care.")
         out.extend(res.warnings)
         return out
+
+    def is_modified(self) -> bool:
+        """Whether the inputs differ from the last scenario loaded (file, upload or start)."""
+        if self._loaded is None:
+            return False
+        try:
+            now = self.to_scenario()
+        except scn.ScenarioError:
+            return True
+        keys = ("transition", "geometry", "dipole", "environment")
+        return any(getattr(now, k) != getattr(self._loaded, k) for k in keys)
 
     def live_drag(self) -> bool:
         """Whether sliders should recompute while dragging (small arrays)."""

@@ -18,6 +18,7 @@ import panel as pn
 
 from physics import scenario as scn
 from physics.exports import spectrum_csv
+from physics.lattices import ring_radius
 
 from .state import NEAR_FIELD_WARN, ExplorerState
 from .views import ArrayView, FarFieldView, SpectrumView, mode_card_html
@@ -151,8 +152,12 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         if state.result is not None:
             em = state.result.emitters
             nn = _nn_text(state)
+            extra = ""
+            if state.lattice == "ring":
+                r = ring_radius(state.n, state.spacing)
+                extra = f" · ring radius {r:.3g} λ0 = {tr.length_nm(r):.4g} nm"
             nm.object = (f"a = {state.spacing:.3f} λ0 = {tr.length_nm(state.spacing):.1f} nm "
-                         f"· N = {em.n} {nn}")
+                         f"· N = {em.n} {nn}{extra}")
 
     state.param.watch(show_geometry, ["lattice", "result", "spacing", "transition",
                                       "wavelength_nm"])

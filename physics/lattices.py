@@ -20,6 +20,7 @@ __all__ = [
     "honeycomb",
     "kagome",
     "ring",
+    "ring_radius",
     "disk",
     "cubic",
     "explicit",
@@ -148,10 +149,15 @@ def ring(n: int, spacing: float, dipole: DipoleLike = "z") -> Emitters:
     """
     n = _count("n", n, low=2)
     spacing = _length("spacing", spacing)
-    radius = spacing / (2.0 * np.sin(np.pi / n))
+    radius = ring_radius(n, spacing)
     phi = 2.0 * np.pi * np.arange(n) / n
     pts = np.column_stack([radius * np.cos(phi), radius * np.sin(phi), np.zeros(n)])
     return _finish(pts, dipole)
+
+
+def ring_radius(n: int, spacing: float) -> float:
+    """Radius [λ0] of a regular ring of ``n`` emitters with neighbours ``spacing`` [λ0] apart."""
+    return spacing / (2.0 * np.sin(np.pi / n))
 
 
 def disk(radius: float, spacing: float, dipole: DipoleLike = "x", *,

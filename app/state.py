@@ -37,9 +37,9 @@ UNDO_DEPTH = 50
 
 _GEOMETRY_PARAMS = ["lattice", "n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
                     "disk_lattice", "chain_axis", "positions", "dipole", "theta_deg",
-                    "phi_deg", "dipoles_explicit", "environment"]
+                    "phi_deg", "dipole_vector", "dipoles_explicit", "environment"]
 _DIPOLE_CHOICES = ["x", "y", "z", "sigma+", "sigma-", "radial", "tangential",
-                   "polar angles", "per emitter"]
+                   "polar angles", "complex vector", "per emitter"]
 
 
 @dataclass(frozen=True)
@@ -115,6 +115,9 @@ class ExplorerState(param.Parameterized):
                              doc="Dipole polar angle from +z [deg]")
     phi_deg = param.Number(0.0, bounds=(-180.0, 180.0), step=1.0,
                            doc="Dipole azimuth from +x [deg]")
+    dipole_vector = param.Array(default=None, allow_None=True,
+                                doc="One complex dipole for all emitters, shape (3,) "
+                                    "(unit vector, no unit); set from a scenario file")
     dipoles_explicit = param.Array(default=None, allow_None=True,
                                    doc="Per-emitter complex dipoles, shape (N, 3) (unit vectors, no unit)")
     environment = param.Selector(objects=["free space"], default="free space",
@@ -203,6 +206,10 @@ class ExplorerState(param.Parameterized):
             geo["positions"] = [[float(v) for v in p] for p in positions]
         if self.dipole == "polar angles":
             dip: dict[str, Any] = {"theta_deg": self.theta_deg, "phi_deg": self.phi_deg}
+        elif self.dipole == "complex vector":
+            if self.dipole_vector is None:
+                raise scn.ScenarioError("dipole", "no complex dipole vector loaded")
+            dip = {"vector": [[float(c.real), float(c.imag)] for c in self.dipole_vector]}
         elif self.dipole == "per emitter":
             if dipoles is None or lat != "explicit":
                 raise scn.ScenarioError("dipole", "per-emitter dipoles need an explicit geometry")
@@ -246,12 +253,12 @@ class ExplorerState(param.Parameterized):
         if "preset" in d:
             upd["dipole"] = d["preset"]
         elif "theta_deg" in d:
-            upd.update(dipole="polar angles", theta_deg=d["theta_deg"],
-                       phi_deg=((d["phi_deg"] + 180.0) % 360.0) - 180.0)
+            phi = d["phi_deg"]
+            if not -180.0 <= phi <= 180.0:  # same direction, within the slider's range
+                phi = ((phi + 180.0) % 360.0) - 180.0
+            upd.update(dipole="polar angles", theta_deg=d["theta_deg"], phi_deg=phi)
         elif "vector" in d:
-            em = sc.emitters()
-            upd.update(lattice="explicit", positions=np.array(em.positions),
-                       dipole="per emitter", dipoles_explicit=np.array(em.dipoles))
+            upd.update(dipole="complex vector", dipole_vector=np.array(d["vector"], dtype=complex))
         else:
             upd.update(dipole="per emitter",
                        dipoles_explicit=np.array(d["per_emitter"], dtype=complex))

@@ -154,3 +154,22 @@ def test_display_units_convert_at_the_edge():
     assert float(st.to_frequency(1.0)) == pytest.approx(6.0666, rel=1e-12)
     st.units = "internal"
     assert float(st.to_frequency(1.0)) == 1.0 and st.time_label() == "1/Γ0"
+
+
+@pytest.mark.parametrize("dipole", [
+    pytest.param({"vector": [[0.6, 0.0], [0.0, 0.8], [0.0, 0.0]]}, id="complex-vector"),
+    pytest.param({"theta_deg": 33.3, "phi_deg": 30.1}, id="angles"),
+    pytest.param({"theta_deg": 90.0, "phi_deg": 270.0}, id="angles-wrapped"),
+])
+def test_dipole_forms_survive_a_session_unchanged(dipole):
+    doc = {"format": "choir-scenario", "version": 1, "transition": {"preset": "Cs133 D2"},
+           "geometry": {"lattice": "triangular", "nx": 4, "ny": 3, "spacing": 0.33},
+           "dipole": dipole, "environment": {"kind": "free_space"}}
+    sc = scn.from_dict(doc)
+    st = ExplorerState(sc)
+    st.solve()
+    back = st.scenario_for_export()
+    assert back.geometry == sc.geometry  # the generator is kept
+    np.testing.assert_allclose(st.result.emitters.dipoles, sc.emitters().dipoles, atol=1e-15)
+    if dipole.get("phi_deg", 0.0) <= 180.0:
+        assert back.dipole == sc.dipole  # bit for bit

@@ -374,7 +374,8 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
     page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
                      sizing_mode="stretch_both")
     page.explorer_state = state  # tests and notebooks reach the session state here
-    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "widgets": widgets}
+    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "widgets": widgets,
+                           "spinner": spinner, "error": error, "caution": caution}
 
     if served:
         state._applying = True  # hold solves until the URL has been read

@@ -4,6 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+import param
 import pytest
 
 from app.explorer import build_explorer
@@ -126,3 +127,45 @@ def test_notebook_call_returns_a_displayable_page():
     page = explorer(ROOT / "scenarios" / "nonagon_ring.json")
     assert page.explorer_state.result.emitters.n == 9
     assert hasattr(page, "_repr_mimebundle_")  # what Jupyter uses to show it inline
+
+
+class _HeldRunner:
+    """Keeps jobs until released, like a slow solve on the server."""
+
+    def __init__(self):
+        self.jobs = []
+
+    def submit(self, job, done):
+        self.jobs.append((job, done))
+
+    def run_all(self):
+        while self.jobs:
+            job, done = self.jobs.pop(0)
+            done(job())
+
+
+def test_busy_indicator_shows_while_computing():
+    from app.state import ExplorerState
+
+    runner = _HeldRunner()
+    page = build_explorer(state=ExplorerState(runner=runner))
+    runner.run_all()
+    spinner = page.explorer_views["spinner"]
+    assert spinner.value is False
+    page.explorer_state.spacing = 0.35
+    assert spinner.value is True  # a solve is pending
+    runner.run_all()
+    assert spinner.value is False
+
+
+def test_sliders_follow_the_drag_for_small_arrays_and_the_release_for_large():
+    page = build_explorer()
+    st, slider = page.explorer_state, page.explorer_views["widgets"]["spacing"]
+    slider.value = 0.32  # a drag step: 100 emitters, recomputed at once
+    assert st.spacing == pytest.approx(0.32) and st.result.scenario.geometry[-1][1] == 0.32
+    st.param.update(nx=25, ny=25)  # 625 emitters > LIVE_DRAG_LIMIT
+    slider.value = 0.34  # dragging: no recompute yet
+    assert st.spacing == pytest.approx(0.32)
+    with param.edit_constant(slider):  # what the browser sends on release
+        slider.value_throttled = 0.34
+    assert st.spacing == pytest.approx(0.34) and st.result.emitters.n == 625

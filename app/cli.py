@@ -16,6 +16,7 @@ from physics import scenario as scn
 from physics.exports import far_field_csv, spectrum_csv
 from physics.far_field import collected_fraction
 from physics.lattices import GENERATORS
+from physics.hamiltonian import ModelLimitWarning
 from physics.modes import DefectiveMatrixWarning, solve_modes
 from physics.units import TRANSITIONS
 
@@ -23,7 +24,8 @@ __all__ = ["main"]
 
 MODEL_LIMITS = (
     "Model: single excitation (weak excitation, linear optics), Markov approximation "
-    "(no retardation across the array), point two-level dipoles at rest."
+    "(no retardation across the array; for a cavity, the bad-cavity limit), point two-level "
+    "dipoles at rest."
 )
 
 
@@ -102,9 +104,12 @@ def cmd_solve(args) -> int:
     sc = _load(args.scenario)
     em = sc.emitters()
     tr = sc.transition
+    env = sc.environment_model()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", DefectiveMatrixWarning)
-        modes = solve_modes(em, sc.environment_model())
+        warnings.simplefilter("always", ModelLimitWarning)
+        modes = solve_modes(em, env)
+    defective = any(issubclass(w.category, DefectiveMatrixWarning) for w in caught)
     out = Path(args.out) if args.out else Path(Path(args.scenario).stem + "-results")
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -112,27 +117,44 @@ def cmd_solve(args) -> int:
         raise UsageError(f"--out: cannot create {out}: {exc.strerror}") from None
 
     sel = sc.selected_mode
-    c = modes.vectors[:, sel]
-    frac_up = collected_fraction(em, c, sc.lens_na, "+z")
-    frac_down = collected_fraction(em, c, sc.lens_na, "-z")
     rates = modes.decay_rates
-
+    single = -2.0 * float(np.sum(np.diag(env.coupling(em)).imag))
     lines = [
         f"Choir — {sc.name or Path(args.scenario).name}",
         f"  array:        {_geometry_text(sc, em.n)}",
         f"  dipoles:      {_dipole_text(sc)}",
-        f"  environment:  {sc.environment_model().describe()}",
+        f"  environment:  {env.describe()}",
         f"  transition:   {tr.name}, λ0 = {tr.wavelength_nm:.6g} nm, Γ0/2π = "
         f"{_hz(tr.linewidth_mhz * 1e6)}, 1/Γ0 = {_seconds(tr.lifetime_ns * 1e-9)}",
         f"  most radiant:     mode {modes.n - 1}: {_fmt_rate(rates[-1], tr)}",
         f"  most subradiant:  mode 0: {_fmt_rate(rates[0], tr)}",
         f"  selected mode {sel}: shift {modes.shifts[sel]:+.4g} Γ0 "
         f"({_hz(float(tr.frequency_mhz(modes.shifts[sel])) * 1e6)}), {_fmt_rate(rates[sel], tr)}",
-        f"      participation ratio {modes.participation_ratio[sel]:.4g} of {em.n}, "
-        f"Petermann factor {modes.petermann[sel]:.4g}",
-        f"      lens NA {sc.lens_na:g}: collects {100 * frac_up:.3g}% along +z, "
-        f"{100 * frac_down:.3g}% along −z",
-        f"  check: Σ decay rates = {rates.sum():.6g} Γ0 (N = {em.n} expected)",
+    ]
+    written = [out / "spectrum.csv", out / "modes.npz"]
+    if defective:
+        lines.append("      the coupling matrix is defective (for a chiral waveguide it is "
+                     "triangular and all eigenvalues coincide): eigenvectors carry no meaning, so "
+                     "no mode profile, far field, channel split or lens fraction is given; the "
+                     "eigenvalues above are still right")
+    else:
+        c = modes.vectors[:, sel]
+        frac_up = collected_fraction(em, c, sc.lens_na, "+z")
+        frac_down = collected_fraction(em, c, sc.lens_na, "-z")
+        channels = env.emitted_power(em, c)
+        lines += [
+            f"      participation ratio {modes.participation_ratio[sel]:.4g} of {em.n}, "
+            f"Petermann factor {modes.petermann[sel]:.4g}",
+            "      emitted into: " + ", ".join(f"{k} {v:.4g} Γ0" for k, v in channels.items()),
+            f"      lens NA {sc.lens_na:g} (free-space part): collects {100 * frac_up:.3g}% along "
+            f"+z, {100 * frac_down:.3g}% along −z",
+        ]
+        (out / "far_field.csv").write_text(far_field_csv(em, c, label=f"of mode {sel}"),
+                                          encoding="utf-8")
+        written.append(out / "far_field.csv")
+    lines += [
+        f"  check: Σ decay rates = {rates.sum():.6g} Γ0 (sum of single-emitter rates "
+        f"{single:.6g} Γ0 expected)",
         f"  {MODEL_LIMITS}",
     ]
     for w in caught:
@@ -141,10 +163,8 @@ def cmd_solve(args) -> int:
     np.savez_compressed(
         out / "modes.npz", eigenvalues=modes.eigenvalues, vectors=modes.vectors,
         left_vectors=modes.left_vectors, positions_lambda0=em.positions, dipoles=em.dipoles,
-        wavelength_nm=tr.wavelength_nm, linewidth_mhz=tr.linewidth_mhz)
-    (out / "far_field.csv").write_text(far_field_csv(em, c, label=f"of mode {sel}"),
-                                      encoding="utf-8")
-    lines.append(f"  wrote {out / 'spectrum.csv'}, {out / 'modes.npz'}, {out / 'far_field.csv'}")
+        wavelength_nm=tr.wavelength_nm, linewidth_mhz=tr.linewidth_mhz, defective=defective)
+    lines.append("  wrote " + ", ".join(str(p) for p in written))
     print("\n".join(lines))
     return 0
 
@@ -158,6 +178,43 @@ _FLAG_FOR_FIELD = {
     "transition.wavelength_nm": "--wavelength-nm", "transition.linewidth_mhz": "--linewidth-mhz",
     "analysis.lens_na": "--na", "analysis.selected_mode": "--mode", "name": "--name",
 }
+_FLAG_FOR_ENV = {"scale": "--free-space-scale", "gamma_forward": "--waveguide-forward",
+                 "gamma_backward": "--waveguide-backward", "gamma_loss": "--waveguide-loss",
+                 "k_guided": "--waveguide-k", "g": "--cavity-g", "kappa": "--cavity-kappa",
+                 "detuning": "--cavity-detuning", "waist": "--cavity-waist",
+                 "polarization": "--cavity-polarization"}
+
+
+def _environment_from_flags(args) -> list[dict]:
+    parts: list[dict] = []
+    if not args.no_free_space:
+        part: dict = {"kind": "free_space"}
+        if args.free_space_scale is not None:
+            part["scale"] = args.free_space_scale
+        parts.append(part)
+    wg = {k: getattr(args, f"waveguide_{k}") for k in ("forward", "backward", "loss", "k", "axis")}
+    if any(v is not None for v in wg.values()):
+        if wg["forward"] is None or wg["backward"] is None:
+            raise UsageError("--waveguide-forward and --waveguide-backward go together "
+                             "(rates into the two guided directions, in Γ0)")
+        part = {"kind": "waveguide", "gamma_forward": wg["forward"],
+                "gamma_backward": wg["backward"]}
+        for key, name in (("loss", "gamma_loss"), ("k", "k_guided"), ("axis", "axis")):
+            if wg[key] is not None:
+                part[name] = wg[key]
+        parts.append(part)
+    cav = {k: getattr(args, f"cavity_{k}") for k in ("g", "kappa", "detuning", "axis",
+                                                     "polarization", "waist")}
+    if any(v is not None for v in cav.values()) or args.cavity_uniform:
+        if cav["g"] is None or cav["kappa"] is None:
+            raise UsageError("--cavity-g and --cavity-kappa go together (both in Γ0)")
+        part = {"kind": "cavity", **{k: v for k, v in cav.items() if v is not None}}
+        if args.cavity_uniform:
+            part["standing_wave"] = False
+        parts.append(part)
+    if not parts:
+        raise UsageError("--no-free-space leaves no environment: add a waveguide or a cavity")
+    return parts
 
 
 def cmd_new(args) -> int:
@@ -182,12 +239,19 @@ def cmd_new(args) -> int:
     if args.name:
         doc["name"] = args.name
     doc.update({"transition": transition, "geometry": geo, "dipole": dipole,
-                "environment": {"kind": "free_space"},
+                "environment": _environment_from_flags(args),
                 "analysis": {"selected_mode": args.mode, "lens_na": args.na, "lens_axis": "+z"}})
     try:
         sc = scn.from_dict(doc)
     except scn.ScenarioError as exc:
         flag = _FLAG_FOR_FIELD.get(exc.path)
+        if flag is None and exc.path.startswith("environment["):
+            field_name = exc.path.rsplit(".", 1)[-1]
+            if field_name == "axis":
+                kind = doc["environment"][int(exc.path[12])]["kind"]
+                flag = "--waveguide-axis" if kind == "waveguide" else "--cavity-axis"
+            else:
+                flag = _FLAG_FOR_ENV.get(field_name)
         if flag is None and exc.path == "geometry" and "missing field" in exc.message:
             missing = exc.message.split("'")[1]
             flag = _FLAG_FOR_FIELD.get(f"geometry.{missing}", missing)
@@ -255,6 +319,30 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--wavelength-nm", dest="wavelength_nm", type=float, help="custom λ0 [nm]")
     n.add_argument("--linewidth-mhz", dest="linewidth_mhz", type=float, help="custom Γ0/2π [MHz]")
     n.add_argument("--na", type=float, default=0.5, help="lens numerical aperture (0, 1]")
+    n.add_argument("--no-free-space", dest="no_free_space", action="store_true",
+                   help="leave free space out of the environment")
+    n.add_argument("--free-space-scale", dest="free_space_scale", type=float,
+                   help="scale of the free-space coupling (default 1)")
+    n.add_argument("--waveguide-forward", dest="waveguide_forward", type=float,
+                   help="waveguide: decay rate into +axis [Γ0]")
+    n.add_argument("--waveguide-backward", dest="waveguide_backward", type=float,
+                   help="waveguide: decay rate into −axis [Γ0]")
+    n.add_argument("--waveguide-loss", dest="waveguide_loss", type=float,
+                   help="waveguide: other decay Γ' [Γ0] (keep 0 with free space)")
+    n.add_argument("--waveguide-k", dest="waveguide_k", type=float,
+                   help="waveguide: guided wavenumber 2π·n_eff [1/λ0] (default 2π)")
+    n.add_argument("--waveguide-axis", dest="waveguide_axis", help="waveguide axis x, y or z")
+    n.add_argument("--cavity-g", dest="cavity_g", type=float, help="cavity: peak coupling g [Γ0]")
+    n.add_argument("--cavity-kappa", dest="cavity_kappa", type=float,
+                   help="cavity: energy decay rate κ [Γ0]")
+    n.add_argument("--cavity-detuning", dest="cavity_detuning", type=float,
+                   help="cavity: ω_cavity − ω0 [Γ0]")
+    n.add_argument("--cavity-axis", dest="cavity_axis", help="cavity axis x, y or z")
+    n.add_argument("--cavity-polarization", dest="cavity_polarization",
+                   help="cavity polarisation x, y or z (not the axis)")
+    n.add_argument("--cavity-waist", dest="cavity_waist", type=float, help="cavity waist [λ0]")
+    n.add_argument("--cavity-uniform", dest="cavity_uniform", action="store_true",
+                   help="cavity: equal coupling along the axis (no standing wave)")
     n.add_argument("--mode", type=int, default=0, help="selected mode (0 = most subradiant)")
     n.add_argument("--name", help="scenario name")
     n.set_defaults(func=cmd_new)

@@ -37,7 +37,14 @@ UNDO_DEPTH = 50
 
 _GEOMETRY_PARAMS = ["lattice", "n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
                     "disk_lattice", "chain_axis", "positions", "dipole", "theta_deg",
-                    "phi_deg", "dipole_vector", "dipoles_explicit", "environment"]
+                    "phi_deg", "dipole_vector", "dipoles_explicit", "environment",
+                    "free_space_scale", "wg_forward", "wg_backward", "wg_loss", "wg_k", "wg_axis",
+                    "cav_g", "cav_kappa", "cav_detuning", "cav_axis", "cav_polarization",
+                    "cav_waist", "cav_standing_wave"]
+#: Environments the explorer edits; "as loaded from file" keeps a file's own list.
+ENVIRONMENTS = ["free space", "free space + waveguide", "waveguide", "free space + cavity",
+                "cavity", "waveguide + cavity", "free space + waveguide + cavity",
+                "as loaded from file"]
 _DIPOLE_CHOICES = ["x", "y", "z", "sigma+", "sigma-", "radial", "tangential",
                    "polar angles", "complex vector", "per emitter"]
 
@@ -120,8 +127,32 @@ class ExplorerState(param.Parameterized):
                                     "(unit vector, no unit); set from a scenario file")
     dipoles_explicit = param.Array(default=None, allow_None=True,
                                    doc="Per-emitter complex dipoles, shape (N, 3) (unit vectors, no unit)")
-    environment = param.Selector(objects=["free space"], default="free space",
-                                 doc="Electromagnetic environment (no unit)")
+    environment = param.Selector(objects=ENVIRONMENTS, default="free space",
+                                 doc="Electromagnetic channels, added up (no unit)")
+    free_space_scale = param.Number(1.0, bounds=(0.0, 10.0), softbounds=(0.0, 1.5), step=0.01,
+                                    doc="Scale of the free-space coupling (no unit; 1 = vacuum)")
+    wg_forward = param.Number(0.5, bounds=(0.0, 1e4), softbounds=(0.0, 5.0), step=0.01,
+                              doc="Waveguide: decay rate into +axis [Γ0]")
+    wg_backward = param.Number(0.5, bounds=(0.0, 1e4), softbounds=(0.0, 5.0), step=0.01,
+                               doc="Waveguide: decay rate into −axis [Γ0]")
+    wg_loss = param.Number(0.0, bounds=(0.0, 1e4), softbounds=(0.0, 2.0), step=0.01,
+                           doc="Waveguide: other decay Γ' [Γ0] (0 when free space is included)")
+    wg_k = param.Number(2 * np.pi, bounds=(0.01, 1000.0), softbounds=(3.0, 20.0), step=0.01,
+                        doc="Waveguide: guided wavenumber 2π·n_eff [1/λ0]")
+    wg_axis = param.Selector(objects=["x", "y", "z"], default="x",
+                             doc="Waveguide axis (no unit)")
+    cav_g = param.Number(0.5, bounds=(0.0, 1e6), softbounds=(0.0, 5.0), step=0.01,
+                         doc="Cavity: peak single-emitter coupling g [Γ0]")
+    cav_kappa = param.Number(50.0, bounds=(1e-6, 1e8), softbounds=(0.5, 500.0), step=0.5,
+                             doc="Cavity: energy decay rate κ [Γ0]")
+    cav_detuning = param.Number(0.0, bounds=(-1e8, 1e8), softbounds=(-100.0, 100.0), step=0.5,
+                                doc="Cavity: detuning ω_cavity − ω0 [Γ0]")
+    cav_axis = param.Selector(objects=["x", "y", "z"], default="z", doc="Cavity axis (no unit)")
+    cav_polarization = param.Selector(objects=["x", "y", "z"], default="x",
+                                      doc="Cavity polarisation, not along the axis (no unit)")
+    cav_waist = param.Number(None, allow_None=True, bounds=(0.05, 1e4), softbounds=(0.2, 20.0),
+                             step=0.1, doc="Cavity: Gaussian waist [λ0]; empty = plane mode")
+    cav_standing_wave = param.Boolean(True, doc="Cavity: standing wave along the axis (no unit)")
     # --- units ------------------------------------------------------------
     transition = param.Selector(objects=[*TRANSITIONS, "custom"], default="Rb87 D2",
                                 doc="Transition that sets λ0 and Γ0 (no unit)")
@@ -164,6 +195,7 @@ class ExplorerState(param.Parameterized):
         self._undo: list[scn.Scenario] = []
         self._applying = False
         self._loaded: scn.Scenario | None = None
+        self._file_environment: tuple = ((("kind", "free_space"),),)
         self._seed: int | None = None
         if scenario is not None:
             self.apply_scenario(scenario, solve=False)
@@ -224,12 +256,62 @@ class ExplorerState(param.Parameterized):
             doc["name"] = self.scenario_name
         if self.description:
             doc["description"] = self.description
-        doc.update(transition=tr, geometry=geo, dipole=dip, environment={"kind": "free_space"},
+        doc.update(transition=tr, geometry=geo, dipole=dip, environment=self._environment_parts(),
                    analysis={"lens_na": self.lens_na, "lens_axis": self.lens_axis},
                    display={"units": self.units, "color_by": self.color_by})
         if self._seed is not None:
             doc["imperfections"] = {"seed": self._seed}
         return doc
+
+    def _environment_parts(self) -> list[dict]:
+        if self.environment == "as loaded from file":
+            return [{k: list(v) if isinstance(v, tuple) else v for k, v in part}
+                    for part in self._file_environment]
+        parts: list[dict] = []
+        if "free space" in self.environment:
+            parts.append({"kind": "free_space"} if self.free_space_scale == 1.0 else
+                         {"kind": "free_space", "scale": self.free_space_scale})
+        if "waveguide" in self.environment:
+            parts.append({"kind": "waveguide", "gamma_forward": self.wg_forward,
+                          "gamma_backward": self.wg_backward, "gamma_loss": self.wg_loss,
+                          "k_guided": self.wg_k, "axis": self.wg_axis})
+        if "cavity" in self.environment:
+            part = {"kind": "cavity", "g": self.cav_g, "kappa": self.cav_kappa,
+                    "detuning": self.cav_detuning, "axis": self.cav_axis,
+                    "polarization": self.cav_polarization,
+                    "standing_wave": self.cav_standing_wave}
+            if self.cav_waist is not None:
+                part["waist"] = self.cav_waist
+            parts.append(part)
+        return parts
+
+    def _apply_environment(self, parts: tuple, upd: dict) -> None:
+        """Map a scenario's environment onto the editable parameters, or keep it verbatim."""
+        kinds = [dict(p)["kind"] for p in parts]
+        names = {"free_space": "free space", "waveguide": "waveguide", "cavity": "cavity"}
+        label = " + ".join(names[k] for k in ("free_space", "waveguide", "cavity") if k in kinds)
+        fits = len(kinds) == len(set(kinds)) and label in ENVIRONMENTS
+        fits = fits and kinds == [k for k in ("free_space", "waveguide", "cavity") if k in kinds]
+        cav = [dict(p) for p in parts if dict(p)["kind"] == "cavity"]
+        fits = fits and not (cav and "center" in cav[0] and any(cav[0]["center"]))
+        fits = fits and not (cav and "k_cavity" in cav[0] and cav[0]["k_cavity"] != 2 * np.pi)
+        self._file_environment = parts
+        if not fits:
+            upd["environment"] = "as loaded from file"
+            return
+        upd["environment"] = label
+        for part in parts:
+            p = dict(part)
+            if p["kind"] == "free_space":
+                upd["free_space_scale"] = p.get("scale", 1.0)
+            elif p["kind"] == "waveguide":
+                upd.update(wg_forward=p["gamma_forward"], wg_backward=p["gamma_backward"],
+                           wg_loss=p.get("gamma_loss", 0.0), wg_k=p.get("k_guided", 2 * np.pi),
+                           wg_axis=p.get("axis", "z"))
+            else:
+                upd.update(cav_g=p["g"], cav_kappa=p["kappa"], cav_detuning=p.get("detuning", 0.0),
+                           cav_axis=p.get("axis", "z"), cav_polarization=p.get("polarization", "x"),
+                           cav_waist=p.get("waist"), cav_standing_wave=p.get("standing_wave", True))
 
     def scenario_for_export(self) -> scn.Scenario:
         """The scenario including the selected mode (what a colleague should get)."""
@@ -264,6 +346,7 @@ class ExplorerState(param.Parameterized):
                        dipoles_explicit=np.array(d["per_emitter"], dtype=complex))
         if upd["lattice"] == "explicit" and upd["positions"] is None:
             upd["positions"] = np.array(sc.emitters().positions)
+        self._apply_environment(sc.environment, upd)
         tr = sc.transition
         if sc.transition_preset is not None:
             upd["transition"] = sc.transition_preset

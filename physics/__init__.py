@@ -11,7 +11,8 @@ the app).
 
 Model limits (state them to users): Markov approximation (no retardation
 across the array, no strong coupling), point dipoles, two-level emitters,
-single excitation (linear optics), emitters at rest.
+single excitation (linear optics), emitters at rest; for a cavity, the
+bad-cavity limit (2 g√N ≪ κ).
 
 This package imports numpy and scipy only: no UI or plotting libraries.
 """
@@ -19,11 +20,14 @@ from __future__ import annotations
 
 from . import lattices
 from .far_field import collected_fraction, far_field_power, total_power
+from .cavity import CavityMode
+from .environment import Combined
 from .free_space import FreeSpace
 from .geometry import Emitters, dipole_vector, polar_dipole
-from .hamiltonian import coupling_matrix
+from .hamiltonian import ModelLimitWarning, coupling_matrix
 from .modes import DefectiveMatrixWarning, Modes, solve_modes
 from .units import TRANSITIONS, Transition
+from .waveguide import Waveguide
 
 __all__ = [
     "Emitters",
@@ -31,6 +35,10 @@ __all__ = [
     "dipole_vector",
     "polar_dipole",
     "FreeSpace",
+    "Waveguide",
+    "CavityMode",
+    "Combined",
+    "ModelLimitWarning",
     "coupling_matrix",
     "solve_modes",
     "Modes",

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .environment import Summable
 from .geometry import Emitters, grid_indices
 
 __all__ = ["K0", "FreeSpace", "greens_tensor", "pair_coupling"]
@@ -128,16 +129,29 @@ def _lattice_gather(em: Emitters) -> np.ndarray | None:
 
 
 @dataclass(frozen=True)
-class FreeSpace:
+class FreeSpace(Summable):
     """Emitters in vacuum (or a uniform medium folded into λ0 and Γ0).
 
     H_ij = −(3π Γ0/k0) conj(d_i)·G(r_i − r_j)·d_j for i ≠ j and H_ii = −iΓ0/2;
     the divergent real part of the self-term is absorbed into ω0 (Lamb shift).
 
+    Parameters
+    ----------
+    scale : float
+        Multiplies the whole free-space contribution (1 = vacuum).  Used in
+        sums with other channels whose presence modifies the non-guided
+        emission; see :mod:`physics.environment`.
+
     References
     ----------
     Lehmberg, Phys. Rev. A 2, 883 (1970); Ficek & Tanaś, Phys. Rep. 372, 369 (2002).
     """
+
+    scale: float = 1.0
+
+    def __post_init__(self) -> None:
+        if not (np.isfinite(self.scale) and 0.0 <= self.scale <= 10.0):
+            raise ValueError(f"scale: {self.scale!r} is out of range; allowed 0 to 10")
 
     #: Free space is isotropic: every point operation leaves G covariant.
     symmetry_operations = ("mirror x", "mirror y", "mirror z", "C2 z", "C2 x", "C2 y",
@@ -153,7 +167,7 @@ class FreeSpace:
         H = _lattice_gather(em)
         if H is None:
             H = self._all_pairs(em)
-        return H
+        return H if self.scale == 1.0 else self.scale * H
 
     @staticmethod
     def _all_pairs(em: Emitters) -> np.ndarray:
@@ -171,4 +185,7 @@ class FreeSpace:
 
     def describe(self) -> str:
         """One-line human description."""
-        return "free space"
+        return "free space" if self.scale == 1.0 else f"free space × {self.scale:g}"
+
+    def emitted_power(self, em: Emitters, amplitudes: np.ndarray) -> dict[str, float]:
+        return {"free space": super().emitted_power(em, amplitudes)[self.describe()]}

@@ -6,6 +6,7 @@ H = J − iΓ/2 with J, Γ Hermitian, J = (H + H†)/2 holds the coherent exchan
 """
 from __future__ import annotations
 
+import warnings
 from typing import Protocol
 
 import numpy as np
@@ -14,7 +15,11 @@ from scipy.spatial import cKDTree
 from .geometry import MIN_DISTANCE, Emitters
 
 __all__ = ["Environment", "coupling_matrix", "check_separation", "decay_operator",
-           "exchange_operator"]
+           "exchange_operator", "ModelLimitWarning"]
+
+
+class ModelLimitWarning(UserWarning):
+    """The configuration leaves the range where the model holds (e.g. the bad-cavity limit)."""
 
 
 class Environment(Protocol):
@@ -65,6 +70,8 @@ def coupling_matrix(em: Emitters, environment: Environment) -> np.ndarray:
         Eigenvalues are ω_m − iΓ_m/2 (collective shift and decay rate).
     """
     check_separation(em)
+    for note in getattr(environment, "check", lambda _: [])(em):
+        warnings.warn(note, ModelLimitWarning, stacklevel=2)
     H = environment.coupling(em)
     if not np.all(np.isfinite(H)):  # a guard: the separation check should make this impossible
         raise FloatingPointError("coupling matrix has non-finite entries")

@@ -23,10 +23,12 @@ from typing import Any, Callable
 import numpy as np
 
 from . import lattices
+from .cavity import CavityMode
 from .free_space import FreeSpace
 from .geometry import Emitters, polar_dipole
 from .hamiltonian import check_separation
 from .units import TRANSITIONS, Transition
+from .waveguide import Waveguide
 
 __all__ = [
     "FORMAT",
@@ -45,12 +47,20 @@ __all__ = [
 
 FORMAT = "choir-scenario"
 #: Version written by this Choir; files up to it are read (older ones migrated).
-VERSION = 1
+VERSION = 2
 #: Largest scenario file read [bytes].
 MAX_FILE_BYTES = 20_000_000
 
 #: Migrations: MIGRATIONS[v] turns a version-v document into version v + 1.
-MIGRATIONS: dict[int, Callable[[dict], dict]] = {}
+def _v1_to_v2(doc: dict) -> dict:
+    """Version 2 allows several environment channels: the single object becomes a list."""
+    out = dict(doc)
+    if "environment" in out:
+        out["environment"] = [out["environment"]]
+    return out
+
+
+MIGRATIONS: dict[int, Callable[[dict], dict]] = {1: _v1_to_v2}
 
 
 class ScenarioError(ValueError):
@@ -74,12 +84,15 @@ class Scenario:
     dipole : tuple of (key, value) pairs
         ``preset``, or ``theta_deg``/``phi_deg``, or ``vector`` (3 complex),
         or ``per_emitter`` (N × 3 complex).
+    environment : tuple of parts, each a tuple of (key, value) pairs
+        ``kind`` ("free_space", "waveguide", "cavity") and that channel's
+        parameters; the channels add up (:mod:`physics.environment`).
     """
 
     transition: Transition
     geometry: tuple
     dipole: tuple = (("preset", "x"),)
-    environment: str = "free_space"
+    environment: tuple = ((("kind", "free_space"),),)
     name: str = ""
     description: str = ""
     seed: int | None = None
@@ -98,11 +111,9 @@ class Scenario:
         """Build the emitter arrangement described by this scenario."""
         return _build_emitters(self)
 
-    def environment_model(self) -> FreeSpace:
-        """The environment object for :func:`physics.coupling_matrix`."""
-        if self.environment == "free_space":
-            return FreeSpace()
-        raise ScenarioError("environment.kind", f"{self.environment!r} is not supported")
+    def environment_model(self):
+        """The environment object for :func:`physics.coupling_matrix` (a sum if several parts)."""
+        return _build_environment(self.environment)
 
     def with_emitters(self, em: Emitters) -> "Scenario":
         """This scenario with an explicit list of positions and per-emitter dipoles."""
@@ -268,7 +279,9 @@ def from_dict(doc: Any) -> Scenario:
         transition_preset=preset,
         geometry=tuple(geo),
         dipole=dip,
-        environment=doc["environment"]["kind"],
+        environment=tuple(tuple(sorted((k, tuple(v) if isinstance(v, list) else v)
+                                       for k, v in part.items()))
+                          for part in doc["environment"]),
         name=doc.get("name", ""),
         description=doc.get("description", ""),
         seed=doc.get("imperfections", {}).get("seed"),
@@ -278,6 +291,7 @@ def from_dict(doc: Any) -> Scenario:
         display_units=display.get("units", "lab"),
         color_by=display.get("color_by", "participation_ratio"),
     )
+    _build_environment(sc.environment)  # parameter combinations (e.g. polarisation ⟂ axis)
     em = sc.emitters()  # physics checks: counts, dipoles, separations
     if sc.selected_mode >= em.n:
         raise ScenarioError("analysis.selected_mode",
@@ -316,7 +330,8 @@ def to_dict(sc: Scenario) -> dict:
     if sc.description:
         doc["description"] = sc.description
     doc.update({"transition": t, "geometry": geo, "dipole": dip,
-                "environment": {"kind": sc.environment}})
+                "environment": [{k: list(v) if isinstance(v, tuple) else v for k, v in part}
+                                for part in sc.environment]})
     if sc.seed is not None:
         doc["imperfections"] = {"seed": sc.seed}
     doc["analysis"] = {"selected_mode": sc.selected_mode, "lens_na": sc.lens_na,
@@ -326,6 +341,33 @@ def to_dict(sc: Scenario) -> dict:
 
 
 # ---------------------------------------------------------------- building
+
+def _build_environment(parts: tuple):
+    models = []
+    for k, part in enumerate(parts):
+        p = dict(part)
+        kind = p.pop("kind")
+        try:
+            if kind == "free_space":
+                models.append(FreeSpace(**p))
+            elif kind == "waveguide":
+                models.append(Waveguide(**p))
+            elif kind == "cavity":
+                if "center" in p:
+                    p["center"] = tuple(p["center"])
+                models.append(CavityMode(**p))
+            else:
+                raise ScenarioError(f"environment[{k}].kind", f"{kind!r} is not supported")
+        except ValueError as exc:
+            if isinstance(exc, ScenarioError):
+                raise
+            field_name, _, msg = str(exc).partition(": ")
+            raise ScenarioError(f"environment[{k}].{field_name}", msg) from None
+    env = models[0]
+    for m in models[1:]:
+        env = env + m
+    return env
+
 
 def _build_emitters(sc: Scenario) -> Emitters:
     g = dict(sc.geometry)

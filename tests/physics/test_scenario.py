@@ -15,11 +15,11 @@ SCENARIOS = sorted((Path(__file__).parents[2] / "scenarios").glob("*.json"))
 
 BASE = {
     "format": "choir-scenario",
-    "version": 1,
+    "version": 2,
     "transition": {"preset": "Rb87 D2"},
     "geometry": {"lattice": "square", "nx": 4, "ny": 3, "spacing": 0.3},
     "dipole": {"preset": "x"},
-    "environment": {"kind": "free_space"},
+    "environment": [{"kind": "free_space"}],
 }
 
 
@@ -93,8 +93,25 @@ def test_explicit_geometry_round_trip_is_bit_exact(tmp_path):
                  "either 'preset'", id="transition-both"),
     pytest.param({"transition": {"wavelength_nm": 780.0, "linewidth_mhz": 0.0}},
                  "transition.linewidth_mhz", "allowed 1e-12", id="linewidth"),
-    pytest.param({"environment": {"kind": "plasma"}}, "environment.kind", "free_space",
+    pytest.param({"environment": [{"kind": "plasma"}]}, "environment[0].kind", "free_space",
                  id="environment"),
+    pytest.param({"environment": []}, "environment", "allowed 1 to 4", id="no-environment"),
+    pytest.param({"environment": [{"kind": "waveguide", "gamma_forward": 1.0}]},
+                 "environment[0]", "missing field 'gamma_backward'", id="waveguide-missing"),
+    pytest.param({"environment": [{"kind": "free_space"},
+                                  {"kind": "waveguide", "gamma_forward": -0.1,
+                                   "gamma_backward": 0.0}]},
+                 "environment[1].gamma_forward", "allowed 0 to 10000", id="waveguide-rate"),
+    pytest.param({"environment": [{"kind": "waveguide", "gamma_forward": 1, "gamma_backward": 1,
+                                   "k_guided": 0}]},
+                 "environment[0].k_guided", "allowed 0.01 to 1000", id="waveguide-k"),
+    pytest.param({"environment": [{"kind": "cavity", "g": 1.0, "kappa": 10.0, "axis": "z",
+                                   "polarization": "z"}]},
+                 "environment[0].polarization", "allowed: x, y", id="cavity-polarisation"),
+    pytest.param({"environment": [{"kind": "cavity", "g": 1.0, "kappa": 0.0}]},
+                 "environment[0].kappa", "allowed 1e-06", id="cavity-kappa"),
+    pytest.param({"environment": [{"kind": "free_space", "g": 1.0}]}, "environment[0]",
+                 "does not belong", id="foreign-environment-field"),
     pytest.param({"analysis": {"selected_mode": 12}}, "analysis.selected_mode",
                  "allowed 0 to 11", id="mode-index"),
     pytest.param({"analysis": {"lens_na": 1.2}}, "analysis.lens_na", "≤ 1", id="na"),
@@ -144,3 +161,38 @@ def test_transition_values_reach_the_scenario():
     assert sc.transition.wavelength_nm == pytest.approx(920.0, rel=1e-15)
     assert json.loads(scn.dumps(sc))["transition"] == {"wavelength_nm": 920.0,
                                                        "linewidth_mhz": 250.0}
+
+
+V1_FILE = """{
+  "format": "choir-scenario", "version": 1, "name": "written by version 1",
+  "transition": {"preset": "Cs133 D2"},
+  "geometry": {"lattice": "chain", "n": 7, "spacing": 0.31},
+  "dipole": {"preset": "z"},
+  "environment": {"kind": "free_space"},
+  "analysis": {"selected_mode": 3, "lens_na": 0.6, "lens_axis": "-z"}
+}"""
+
+
+def test_version_1_files_are_migrated():
+    """A file of the first format opens unchanged in meaning and is written as version 2."""
+    sc = scn.loads(V1_FILE)
+    assert sc.environment == ((("kind", "free_space"),),)
+    assert sc.selected_mode == 3 and sc.lens_axis == "-z"
+    doc = json.loads(scn.dumps(sc))
+    assert doc["version"] == scn.VERSION == 2
+    assert doc["environment"] == [{"kind": "free_space"}]
+
+
+def test_every_environment_round_trips():
+    doc = copy.deepcopy(BASE)
+    doc["environment"] = [
+        {"kind": "free_space", "scale": 0.8},
+        {"kind": "waveguide", "gamma_forward": 0.7, "gamma_backward": 0.1, "gamma_loss": 0.0,
+         "k_guided": 7.5, "axis": "x"},
+        {"kind": "cavity", "g": 0.25, "kappa": 40.0, "detuning": -3.0, "axis": "z",
+         "polarization": "y", "standing_wave": False, "waist": 3.0, "center": [0.1, 0.0, 0.0]},
+    ]
+    sc = scn.from_dict(doc)
+    assert json.loads(scn.dumps(sc))["environment"] == doc["environment"]
+    env = sc.environment_model()
+    assert "waveguide" in env.describe() and "cavity" in env.describe()

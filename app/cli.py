@@ -14,10 +14,11 @@ import numpy as np
 
 from physics import scenario as scn
 from physics.exports import far_field_csv, spectrum_csv
-from physics.far_field import collected_fraction
+from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
 from physics.hamiltonian import ModelLimitWarning
 from physics.modes import DefectiveMatrixWarning, solve_modes
+from physics.waveguide import guided_figures
 from physics.units import TRANSITIONS
 
 __all__ = ["main"]
@@ -124,6 +125,8 @@ def cmd_solve(args) -> int:
         f"  array:        {_geometry_text(sc, em.n)}",
         f"  dipoles:      {_dipole_text(sc)}",
         f"  environment:  {env.describe()}",
+        *([f"  guided:       β-factor {g['beta']:.3g} (guided share of one emitter's decay), "
+           f"directionality {g['directionality']:+.3g}"] if (g := guided_figures(env)) else []),
         f"  transition:   {tr.name}, λ0 = {tr.wavelength_nm:.6g} nm, Γ0/2π = "
         f"{_hz(tr.linewidth_mhz * 1e6)}, 1/Γ0 = {_seconds(tr.lifetime_ns * 1e-9)}",
         f"  most radiant:     mode {modes.n - 1}: {_fmt_rate(rates[-1], tr)}",
@@ -139,19 +142,22 @@ def cmd_solve(args) -> int:
                      "eigenvalues above are still right")
     else:
         c = modes.vectors[:, sel]
-        frac_up = collected_fraction(em, c, sc.lens_na, "+z")
-        frac_down = collected_fraction(em, c, sc.lens_na, "-z")
+        frac_up = lens_fraction(em, env, c, sc.lens_na, "+z", float(rates[sel]))
+        frac_down = lens_fraction(em, env, c, sc.lens_na, "-z", float(rates[sel]))
         channels = env.emitted_power(em, c)
         lines += [
             f"      participation ratio {modes.participation_ratio[sel]:.4g} of {em.n}, "
             f"Petermann factor {modes.petermann[sel]:.4g}",
             "      emitted into: " + ", ".join(f"{k} {v:.4g} Γ0" for k, v in channels.items()),
-            f"      lens NA {sc.lens_na:g} (free-space part): collects {100 * frac_up:.3g}% along "
-            f"+z, {100 * frac_down:.3g}% along −z",
+            f"      lens NA {sc.lens_na:g}: collects {100 * frac_up:.3g}% along +z, "
+            f"{100 * frac_down:.3g}% along −z of the mode's emission"
+            if env.free_space_weight > 0 else "      no free-space channel: no lens figures",
         ]
-        (out / "far_field.csv").write_text(far_field_csv(em, c, label=f"of mode {sel}"),
-                                          encoding="utf-8")
-        written.append(out / "far_field.csv")
+        if env.free_space_weight > 0:
+            (out / "far_field.csv").write_text(
+                far_field_csv(em, c, label=f"of mode {sel}", weight=env.free_space_weight),
+                encoding="utf-8")
+            written.append(out / "far_field.csv")
     lines += [
         f"  check: Σ decay rates = {rates.sum():.6g} Γ0 (sum of single-emitter rates "
         f"{single:.6g} Γ0 expected)",

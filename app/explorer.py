@@ -14,11 +14,13 @@ from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any, Callable
 
+import numpy as np
 import panel as pn
 
 from physics import scenario as scn
 from physics.exports import spectrum_csv
 from physics.lattices import ring_radius
+from physics.waveguide import guided_figures
 
 from .state import NEAR_FIELD_WARN, ExplorerState
 from .views import ArrayView, FarFieldView, SpectrumView, mode_card_html
@@ -87,6 +89,13 @@ _LABELS = {
     "linewidth_mhz": "Custom Γ0/2π [MHz]", "color_by": "Colour modes by",
     "lens_na": "Lens NA", "lens_axis": "Lens looks along", "projection": "Array view plane",
     "far_field_scale": "Far-field colour scale",
+    "free_space_scale": "Free-space scale", "wg_forward": "Γ forward (+axis) [Γ0]",
+    "wg_backward": "Γ backward (−axis) [Γ0]", "wg_loss": "Γ' other decay [Γ0]",
+    "wg_k": "Guided wavenumber 2π·n_eff [1/λ0]", "wg_axis": "Waveguide axis",
+    "cav_g": "Coupling g [Γ0]", "cav_kappa": "Cavity decay κ [Γ0]",
+    "cav_detuning": "Detuning ω_c − ω0 [Γ0]", "cav_axis": "Cavity axis",
+    "cav_polarization": "Cavity polarisation", "cav_waist": "Waist [λ0] (empty: plane mode)",
+    "cav_standing_wave": "Standing wave along the axis",
 }
 
 
@@ -130,7 +139,9 @@ def _slug(text: str) -> str:
 def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     sliders = {name: _slider(state, name, integer=name in ("n", "nx", "ny", "nz"))
                for name in ("n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
-                            "theta_deg", "phi_deg", "lens_na")}
+                            "theta_deg", "phi_deg", "lens_na", "free_space_scale", "wg_forward",
+                            "wg_backward", "wg_loss", "wg_k", "cav_g", "cav_kappa",
+                            "cav_detuning")}
     lattice = _select(state, "lattice")
     disk_lattice = _select(state, "disk_lattice")
     chain_axis = _select(state, "chain_axis", pn.widgets.RadioButtonGroup)
@@ -172,6 +183,43 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     state.param.watch(show_angles, "dipole")
     show_angles()
     environment = _select(state, "environment")
+    env_groups = {
+        "free space": pn.Column(sliders["free_space_scale"], sizing_mode="stretch_width"),
+        "waveguide": pn.Column(
+            sliders["wg_forward"], sliders["wg_backward"], sliders["wg_loss"], sliders["wg_k"],
+            pn.pane.HTML("<span style='font-size:12px'>Waveguide axis</span>"),
+            _select(state, "wg_axis", pn.widgets.RadioButtonGroup), sizing_mode="stretch_width"),
+        "cavity": pn.Column(
+            sliders["cav_g"], sliders["cav_kappa"], sliders["cav_detuning"],
+            pn.pane.HTML("<span style='font-size:12px'>Cavity axis / polarisation</span>"),
+            _select(state, "cav_axis", pn.widgets.RadioButtonGroup),
+            _select(state, "cav_polarization", pn.widgets.RadioButtonGroup),
+            pn.widgets.FloatInput.from_param(state.param.cav_waist, label=_LABELS["cav_waist"],
+                                             sizing_mode="stretch_width"),
+            pn.widgets.Checkbox.from_param(state.param.cav_standing_wave,
+                                           label=_LABELS["cav_standing_wave"]),
+            sizing_mode="stretch_width"),
+    }
+    env_info = pn.pane.HTML(styles={"font-size": "12px", "color": "#444"},
+                            sizing_mode="stretch_width")
+
+    def show_environment(*_):
+        for key, group in env_groups.items():
+            group.visible = key in state.environment
+        res = state.result
+        if res is None or res.environment is None:
+            env_info.object = ""
+            return
+        text = html.escape(res.environment.describe())
+        fig = guided_figures(res.environment)
+        if fig is not None:
+            text += (f"<br>β-factor {fig['beta']:.3g} (guided share of one emitter's decay) · "
+                     f"directionality {fig['directionality']:+.3g} · n_eff = "
+                     f"{state.wg_k / (2 * np.pi):.4g}")
+        env_info.object = text
+
+    state.param.watch(show_environment, ["environment", "result"])
+    show_environment()
     transition = _select(state, "transition")
     wl = pn.widgets.FloatInput.from_param(state.param.wavelength_nm, label=_LABELS["wavelength_nm"],
                                           sizing_mode="stretch_width")
@@ -248,7 +296,8 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
 
     column = pn.Column(
         card("Array", lattice, *geometry_widgets.values(), explicit_note, nm, undo),
-        card("Dipoles and environment", dipole, angles, environment),
+        card("Dipoles and environment", dipole, angles, environment, *env_groups.values(),
+             env_info),
         card("Transition and units", transition, custom, tr_info, units, units_note),
         card("Mode and lens", mode, pn.Row(prev_b, next_b, sizing_mode="stretch_width"),
              sliders["lens_na"], lens_axis),

@@ -17,8 +17,9 @@ import numpy as np
 import param
 
 from physics import scenario as scn
-from physics.far_field import collected_fraction, far_field_image
+from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters, nearest_neighbour_distance
+from physics.hamiltonian import ModelLimitWarning
 from physics.modes import DefectiveMatrixWarning, Modes, solve_modes
 from physics.units import TRANSITIONS, Transition
 
@@ -32,6 +33,14 @@ LIVE_DRAG_LIMIT = 400
 NEAR_FIELD_WARN = 0.1
 #: Pixels across each hemisphere disc of the far-field view.
 FAR_FIELD_PIXELS = 121
+#: What the explorer says when eigenvectors carry no meaning.
+DEFECTIVE_NOTE = (
+    "The coupling matrix is defective (a chiral waveguide makes it triangular, with all "
+    "eigenvalues equal): the spectrum still shows the eigenvalues, but eigenvectors carry no "
+    "meaning, so mode profiles, far fields, lens and channel figures are not shown. Driven "
+    "transmission and time evolution — the meaningful observables here — come with the "
+    "driving features.")
+
 #: Most undo steps kept.
 UNDO_DEPTH = 50
 
@@ -58,6 +67,8 @@ class Result:
     emitters: Emitters
     modes: Modes
     warnings: tuple[str, ...]
+    environment: Any = None  # the environment model (physics object)
+    defective: bool = False  # eigenvectors meaningless (e.g. chiral waveguide)
 
 
 @dataclass(frozen=True)
@@ -66,11 +77,13 @@ class ModeResult:
 
     generation: int
     mode: int
-    far_field: np.ndarray  # (P, 2P) dP/dΩ image [Γ0/sr], NaN outside the discs
+    far_field: np.ndarray | None  # (P, 2P) dP/dΩ [Γ0/sr], NaN outside the discs; None: no
+    #                               free-space channel or no meaningful eigenvector
     extent: float  # half-width of one disc in direction cosines (1)
-    collected_up: float  # fraction into the lens along +z
-    collected_down: float  # fraction into the lens along −z
+    collected_up: float  # share of the mode's total emission into the lens along +z
+    collected_down: float  # … along −z
     na: float
+    channels: dict  # power into each channel [Γ0]
 
 
 class SyncRunner:
@@ -398,11 +411,17 @@ class ExplorerState(param.Parameterized):
 
         try:
             em = sc.emitters()
+            env = sc.environment_model()
             with warnings.catch_warnings(record=True) as caught:
                 warnings.simplefilter("always", DefectiveMatrixWarning)
-                modes = solve_modes(em, sc.environment_model())
-            notes = tuple(str(w.message) for w in caught)
-            return Result(gen, sc, em, modes, notes)
+                warnings.simplefilter("always", ModelLimitWarning)
+                modes = solve_modes(em, env)
+            defective = any(issubclass(w.category, DefectiveMatrixWarning) for w in caught)
+            notes = tuple(str(w.message) for w in caught
+                          if not issubclass(w.category, DefectiveMatrixWarning))
+            if defective:
+                notes += (DEFECTIVE_NOTE,)
+            return Result(gen, sc, em, modes, notes, env, defective)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
 
@@ -437,15 +456,20 @@ class ExplorerState(param.Parameterized):
 
     @staticmethod
     def _mode_job(gen: int, res: Result, m: int, na: float) -> ModeResult:
-        em, c = res.emitters, res.modes.vectors[:, m]
-        total = float(res.modes.decay_rates[m])  # exact for an eigenvector in free space
-        img = _far_field_image(em, c, FAR_FIELD_PIXELS)
-        up = collected_fraction(em, c, na, "+z", total=total) if total > 0 else math.nan
-        down = collected_fraction(em, c, na, "-z", total=total) if total > 0 else math.nan
-        return ModeResult(gen, m, img, 1.0, up, down, na)
+        if res.defective:
+            return ModeResult(gen, m, None, 1.0, math.nan, math.nan, na, {})
+        em, env, c = res.emitters, res.environment, res.modes.vectors[:, m]
+        rate = float(res.modes.decay_rates[m])  # total emitted power of a unit eigenvector
+        weight = env.free_space_weight
+        img = weight * _far_field_image(em, c, FAR_FIELD_PIXELS) if weight > 0 else None
+        up = lens_fraction(em, env, c, na, "+z", rate)
+        down = lens_fraction(em, env, c, na, "-z", rate)
+        return ModeResult(gen, m, img, 1.0, up, down, na, env.emitted_power(em, c))
 
-    def _accept_mode(self, mres: ModeResult) -> None:
-        if mres.generation == self._mode_generation:
+    def _accept_mode(self, mres: ModeResult | Exception) -> None:
+        if isinstance(mres, Exception):
+            self.message = f"Mode figures not computed — {mres}"
+        elif mres.generation == self._mode_generation:
             self.mode_result = mres
 
     # ------------------------------------------------------------ derived

@@ -19,7 +19,7 @@ from bokeh.plotting import figure
 from physics.geometry import nearest_neighbour_distance
 from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
-from .state import ExplorerState
+from .state import DEFECTIVE_NOTE, ExplorerState
 
 __all__ = ["SpectrumView", "ArrayView", "FarFieldView", "mode_card_html", "PHASE_PALETTE",
            "FIGURE_LABELS"]
@@ -180,6 +180,19 @@ class ArrayView:
         cb = ColorBar(color_mapper=self.mapper, width=10, title="phase arg c_j [rad]",
                       title_text_font_size="10px", major_label_text_font_size="9px")
         p.add_layout(cb, "right")
+        self.env_lines = ColumnDataSource(dict(xs=[], ys=[], color=[], dash=[], label=[]),
+                                          name="choir-environment-lines")
+        self.env_rings = ColumnDataSource(dict(x=[], y=[], r=[], color=[], label=[]),
+                                          name="choir-environment-rings")
+        lr = p.multi_line("xs", "ys", source=self.env_lines, line_color="color", line_width=3,
+                          line_alpha=0.55, line_dash="dash")
+        rr = p.circle("x", "y", radius="r", source=self.env_rings, fill_alpha=0.08,
+                      fill_color="color", line_color="color", line_width=2, line_alpha=0.7)
+        p.add_tools(HoverTool(renderers=[lr, rr], tooltips=[("", "@label")]))
+        p.renderers.remove(lr)
+        p.renderers.remove(rr)
+        p.renderers.insert(0, rr)
+        p.renderers.insert(0, lr)  # drawn beneath the emitters
         self.figure = p
         self._writing = False
         self.source.on_change("data", self._on_edit)
@@ -196,7 +209,7 @@ class ArrayView:
             return
         em, m = res.emitters, res.modes
         k = min(st.selected_mode, m.n - 1)
-        c = m.vectors[:, k]
+        c = m.vectors[:, k] if not res.defective else np.ones(m.n)  # no meaningful profile
         big = c[np.argmax(np.abs(c))]
         c = c * np.conj(big) / abs(big) ** 2  # largest amplitude → 1 (real, positive)
         amp = np.abs(c)
@@ -215,6 +228,50 @@ class ArrayView:
         names = "xyz"
         self.figure.xaxis.axis_label = f"{names[a]} [{lab}]"
         self.figure.yaxis.axis_label = f"{names[b]} [{lab}]"
+        self._draw_environment(pos, a, b, float(st.to_length(1.0)))
+
+    def _draw_environment(self, pos: np.ndarray, a: int, b: int, scale: float) -> None:
+        """Waveguide axis and cavity axis/waist in the view plane (projected)."""
+        env = self.state.result.environment
+        parts = getattr(env, "parts", (env,))
+        lines = dict(xs=[], ys=[], color=[], dash=[], label=[])
+        rings = dict(x=[], y=[], r=[], color=[], label=[])
+        lo, hi = pos.min(axis=0), pos.max(axis=0)
+        span = max(float(np.max(hi - lo)), scale)
+        mid = 0.5 * (lo + hi)
+        for part in parts:
+            axis = getattr(part, "axis", None)
+            if axis is None:
+                continue
+            ax = "xyz".index(axis)
+            is_wg = hasattr(part, "gamma_forward")
+            color = "#00897b" if is_wg else "#ef6c00"
+            label = "waveguide axis" if is_wg else "cavity axis"
+            centre = mid if is_wg else np.asarray(part.center) * scale
+            offsets = [0.0]
+            waist = None if is_wg else part.waist
+            if waist is not None:
+                offsets += [waist * scale, -waist * scale]
+            if ax in (a, b):
+                other = b if ax == a else a
+                for k, off in enumerate(offsets):
+                    ends = [lo[ax] - 0.3 * span, hi[ax] + 0.3 * span]
+                    across = [centre[other] + off] * 2
+                    xs, ys = (ends, across) if ax == a else (across, ends)
+                    lines["xs"].append(xs)
+                    lines["ys"].append(ys)
+                    lines["color"].append(color)
+                    lines["dash"].append("solid" if k == 0 else "dashed")
+                    lines["label"].append(label if k == 0 else "cavity waist")
+            else:  # axis perpendicular to the view: mark where it pierces the plane
+                rings["x"].append(centre[a])
+                rings["y"].append(centre[b])
+                rings["r"].append(waist * scale if waist is not None else 0.04 * span)
+                rings["color"].append(color)
+                rings["label"].append(label + (" (waist)" if waist is not None else "") +
+                                      " ⊥ this plane")
+        self.env_lines.data = lines
+        self.env_rings.data = rings
 
     def _on_edit(self, attr, old, new) -> None:
         if self._writing or self.state.result is None:
@@ -291,6 +348,14 @@ class FarFieldView:
         if mres is None:
             return
         img = mres.far_field
+        if img is None:
+            self.images.data = dict(image=[], x=[], y=[], dw=[], dh=[])
+            self.lens.data = dict(x=[], y=[], r=[])
+            res = st.result
+            self.lens_label.text = ("no far field: eigenvectors of a defective matrix carry no "
+                                    "meaning" if res is not None and res.defective else
+                                    "no free-space channel in this environment")
+            return
         pix = img.shape[0]
         top = float(np.nanmax(img)) if np.any(np.isfinite(img)) else 1.0
         top = top if top > 0 else 1.0
@@ -319,6 +384,11 @@ def mode_card_html(state: ExplorerState) -> str:
         return "<p>No result yet.</p>"
     m = res.modes
     k = min(state.selected_mode, m.n - 1)
+    if res.defective:
+        rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
+        return (f"<div style='font-size:13px'><b style='font-size:15px'>Eigenvalue {k}</b> of "
+                f"{m.n}<p>decay rate {rate:.4g} Γ0, shift {shift:+.4g} Γ0</p>"
+                f"<p style='color:#b71c1c'>{html.escape(DEFECTIVE_NOTE)}</p></div>")
     rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
     fu, tu = state.frequency_label(), state.time_label()
     tag = radiance_label(rate)
@@ -339,8 +409,13 @@ def mode_card_html(state: ExplorerState) -> str:
     if m.sector_names != ("no symmetry used",):
         rows.append(("symmetry", m.symmetry_label(k)))
     if mres is not None and mres.mode == k:
-        rows.append((f"lens NA {mres.na:.2f}", f"{100 * mres.collected_up:.3g} % along +z, "
-                     f"{100 * mres.collected_down:.3g} % along −z"))
+        if np.isfinite(mres.collected_up):
+            rows.append((f"lens NA {mres.na:.2f}", f"{100 * mres.collected_up:.3g} % along +z, "
+                         f"{100 * mres.collected_down:.3g} % along −z (of all emission)"))
+        if len(mres.channels) > 1:
+            for name, power in mres.channels.items():
+                share = 100 * power / rate if rate > RATE_FLOOR else float("nan")
+                rows.append((f"into {name}", f"{share:.3g} % ({power:.4g} Γ0)"))
     body = "".join(f"<tr><th style='text-align:left;font-weight:500;padding-right:12px'>"
                    f"{html.escape(a)}</th><td>{b}</td></tr>" for a, b in rows)
     return (f"<div style='font-size:13px'><b style='font-size:15px'>Mode {k}</b> of {m.n} "

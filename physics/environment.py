@@ -34,6 +34,11 @@ __all__ = ["Summable", "Combined"]
 class Summable:
     """Mixin: environments add up with ``+``."""
 
+    #: Weight of free-space radiation in this channel: the far field of a state
+    #: is this times the vacuum formula (physics.far_field).  0 for guided or
+    #: cavity channels, `scale` for FreeSpace, summed for a Combined.
+    free_space_weight: float = 0.0
+
     def __add__(self, other):
         if not isinstance(other, Summable):
             return NotImplemented
@@ -87,6 +92,10 @@ class Combined(Summable):
 
     def check(self, em: Emitters) -> list[str]:
         return [note for p in self.parts for note in p.check(em)]
+
+    @property
+    def free_space_weight(self) -> float:
+        return float(sum(p.free_space_weight for p in self.parts))
 
     def emitted_power(self, em: Emitters, amplitudes: np.ndarray) -> dict[str, float]:
         out: dict[str, float] = {}

@@ -49,12 +49,16 @@ def spectrum_csv(modes: Modes, transition: Transition) -> str:
 
 
 def far_field_csv(em: Emitters, amplitudes: np.ndarray, *, label: str = "",
-                  step_deg: float = 2.0) -> str:
-    """dP/dΩ on a regular (θ, φ) grid as CSV text [Γ0 per steradian]."""
+                  step_deg: float = 2.0, weight: float = 1.0) -> str:
+    """dP/dΩ on a regular (θ, φ) grid as CSV text [Γ0 per steradian].
+
+    ``weight`` is the environment's free-space weight (1 in vacuum).
+    """
     theta = np.radians(np.arange(0.0, 180.0 + 1e-9, step_deg))
     phi = np.radians(np.arange(0.0, 360.0, 2.0 * step_deg))
     TH, PH = np.meshgrid(theta, phi, indexing="ij")
-    power = far_field_power(em, amplitudes, directions_from_angles(TH.ravel(), PH.ravel()))
+    power = weight * far_field_power(em, amplitudes,
+                                     directions_from_angles(TH.ravel(), PH.ravel()))
     buf = io.StringIO()
     buf.write(f"# far field {label}: dP/dOmega in units of Gamma0 per steradian; "
               f"theta from +z, phi from +x\n")

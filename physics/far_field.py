@@ -33,6 +33,7 @@ __all__ = [
     "directions_from_angles",
     "hemisphere_directions",
     "far_field_image",
+    "lens_fraction",
 ]
 
 _PREF = 3.0 / (8.0 * np.pi)
@@ -275,3 +276,18 @@ def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
     if total <= 0.0:
         return float("nan")
     return inside / total
+
+
+def lens_fraction(em: Emitters, environment, amplitudes: np.ndarray, na: float, axis: str,
+                  decay_rate: float) -> float:
+    """Share of a state's *total* emission (all channels) that a lens collects.
+
+    The lens sees only free-space radiation, ``environment.free_space_weight``
+    times the vacuum far field; ``decay_rate`` [Γ0] is the state's total
+    emitted power (for a unit-norm eigenvector, its decay rate).  NaN when the
+    environment has no free-space channel or nothing is emitted.
+    """
+    weight = float(getattr(environment, "free_space_weight", 0.0))
+    if weight <= 0.0 or decay_rate <= 0.0:
+        return float("nan")
+    return collected_fraction(em, amplitudes, na, axis, total=decay_rate / weight)

@@ -153,6 +153,10 @@ class FreeSpace(Summable):
         if not (np.isfinite(self.scale) and 0.0 <= self.scale <= 10.0):
             raise ValueError(f"scale: {self.scale!r} is out of range; allowed 0 to 10")
 
+    @property
+    def free_space_weight(self) -> float:
+        return float(self.scale)
+
     #: Free space is isotropic: every point operation leaves G covariant.
     symmetry_operations = ("mirror x", "mirror y", "mirror z", "C2 z", "C2 x", "C2 y",
                            "inversion")

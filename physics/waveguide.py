@@ -34,7 +34,7 @@ import numpy as np
 from .environment import Summable
 from .geometry import Emitters
 
-__all__ = ["Waveguide"]
+__all__ = ["Waveguide", "guided_figures"]
 
 _AXES = {"x": 0, "y": 1, "z": 2}
 _FLIPS = {"x": ("mirror x", "C2 y", "C2 z", "inversion"),
@@ -152,5 +152,25 @@ class Waveguide(Summable):
         kind = ("bidirectional" if abs(self.directionality) < 1e-12 else
                 "chiral" if abs(abs(self.directionality) - 1) < 1e-12 else "partly chiral")
         return (f"{kind} waveguide along {self.axis} (Γ_f = {self.gamma_forward:g}, "
-                f"Γ_b = {self.gamma_backward:g}, Γ' = {self.gamma_loss:g} Γ0; β = {self.beta:.3g}, "
+                f"Γ_b = {self.gamma_backward:g}, Γ' = {self.gamma_loss:g} Γ0, "
                 f"n_eff = {self.n_eff:.4g})")
+
+
+def guided_figures(environment) -> dict[str, float] | None:
+    """β-factor and directionality of one emitter in ``environment``, or None without a guide.
+
+    β = Γ_1D / (total single-emitter decay rate), counting every channel of the
+    sum: free space (its weight), each waveguide's Γ_f + Γ_b + Γ'.  A cavity's
+    contribution depends on where the emitter sits and is left out (β of an
+    emitter away from the cavity mode).  Directionality = (Γ_f − Γ_b)/(Γ_f + Γ_b).
+    """
+    parts = getattr(environment, "parts", (environment,))
+    guides = [p for p in parts if isinstance(p, Waveguide)]
+    if not guides:
+        return None
+    fwd = sum(g.gamma_forward for g in guides)
+    bwd = sum(g.gamma_backward for g in guides)
+    total = float(getattr(environment, "free_space_weight", 0.0)) + sum(
+        g.gamma_guided + g.gamma_loss for g in guides)
+    return {"beta": (fwd + bwd) / total if total > 0 else 0.0,
+            "directionality": (fwd - bwd) / (fwd + bwd) if fwd + bwd > 0 else 0.0}

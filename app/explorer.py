@@ -29,8 +29,10 @@ __all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
 
 MODEL_NOTE = (
     "**Model.** One excitation shared by the emitters (weak excitation, linear optics); "
-    "Markov approximation (no retardation across the array, no strong coupling); point-like "
-    "two-level emitters at rest; free space. Shifts exclude the single-emitter Lamb shift. "
+    "Markov approximation (no retardation across the array; a cavity mode only in the "
+    "bad-cavity limit 2g√N ≪ κ, no strong coupling); point-like two-level emitters at rest; "
+    "waveguides through one guided mode with the given rates. Shifts exclude the "
+    "single-emitter Lamb shift. "
     "Results outside these assumptions — saturation, multi-level atoms, emitters closer than "
     f"about {NEAR_FIELD_WARN} λ0, motion — need a different model."
 )

@@ -171,6 +171,7 @@ class ExplorerState(param.Parameterized):
                                 doc="Transition that sets λ0 and Γ0 (no unit)")
     wavelength_nm = param.Number(780.0, bounds=(100.0, 1e5), doc="Custom λ0 [nm]")
     linewidth_mhz = param.Number(6.0, bounds=(1e-9, 1e4), doc="Custom Γ0/2π [MHz]")
+    transition_label = param.String("custom", doc="Name of a custom transition (text, no unit)")
     units = param.Selector(objects=["lab", "internal"], default="lab",
                            doc="Display units (no unit): lab = nm, MHz, ns; internal = λ0, Γ0, 1/Γ0")
     # --- analysis and display -------------------------------------------
@@ -217,7 +218,7 @@ class ExplorerState(param.Parameterized):
     @property
     def transition_obj(self) -> Transition:
         if self.transition == "custom":
-            return Transition(self.wavelength_nm, self.linewidth_mhz, "custom")
+            return Transition(self.wavelength_nm, self.linewidth_mhz, self.transition_label)
         return TRANSITIONS[self.transition]
 
     def to_scenario(self) -> scn.Scenario:
@@ -262,8 +263,11 @@ class ExplorerState(param.Parameterized):
                                    for d in dipoles]}
         else:
             dip = {"preset": self.dipole}
-        tr = ({"wavelength_nm": self.wavelength_nm, "linewidth_mhz": self.linewidth_mhz}
-              if self.transition == "custom" else {"preset": self.transition})
+        tr: dict[str, Any] = {"preset": self.transition}
+        if self.transition == "custom":
+            tr = {"wavelength_nm": self.wavelength_nm, "linewidth_mhz": self.linewidth_mhz}
+            if self.transition_label and self.transition_label != "custom":
+                tr["label"] = self.transition_label
         doc: dict[str, Any] = {"format": scn.FORMAT, "version": scn.VERSION}
         if self.scenario_name:
             doc["name"] = self.scenario_name
@@ -365,7 +369,7 @@ class ExplorerState(param.Parameterized):
             upd["transition"] = sc.transition_preset
         else:
             upd.update(transition="custom", wavelength_nm=tr.wavelength_nm,
-                       linewidth_mhz=tr.linewidth_mhz)
+                       linewidth_mhz=tr.linewidth_mhz, transition_label=tr.name)
         upd.update(units=sc.display_units, color_by=sc.color_by, lens_na=sc.lens_na,
                    lens_axis=sc.lens_axis, scenario_name=sc.name, description=sc.description,
                    selected_mode=sc.selected_mode, message="")
@@ -496,8 +500,10 @@ class ExplorerState(param.Parameterized):
             now = self.to_scenario()
         except scn.ScenarioError:
             return True
-        keys = ("transition", "geometry", "dipole", "environment")
-        return any(getattr(now, k) != getattr(self._loaded, k) for k in keys)
+        # compare what the inputs mean, not how they are written (defaults may be implicit)
+        return (now.transition != self._loaded.transition
+                or now.emitters() != self._loaded.emitters()
+                or now.environment_model() != self._loaded.environment_model())
 
     def live_drag(self) -> bool:
         """Whether sliders should recompute while dragging (small arrays)."""

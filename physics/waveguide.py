@@ -145,8 +145,10 @@ class Waveguide(Summable):
     def emitted_power(self, em: Emitters, amplitudes: np.ndarray) -> dict[str, float]:
         fwd, bwd = self.guided_power(em, amplitudes)
         c = np.asarray(amplitudes, dtype=complex)
-        return {f"guided, towards +{self.axis}": fwd, f"guided, towards −{self.axis}": bwd,
-                "waveguide loss Γ'": float(self.gamma_loss * np.vdot(c, c).real)}
+        out = {f"guided, towards +{self.axis}": fwd, f"guided, towards −{self.axis}": bwd}
+        if self.gamma_loss > 0:
+            out["waveguide loss Γ'"] = float(self.gamma_loss * np.vdot(c, c).real)
+        return out
 
     def describe(self) -> str:
         kind = ("bidirectional" if abs(self.directionality) < 1e-12 else

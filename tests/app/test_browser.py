@@ -276,3 +276,33 @@ def test_a_link_reopens_the_same_view(browser, server):
         assert t.errors == []
     finally:
         t.close()
+
+
+@pytest.mark.parametrize("name, words", [
+    pytest.param("fibre_chain_partly_chiral", ["partly chiral waveguide", "β-factor 0.0909",
+                                               "into guided, towards +x"], id="waveguide"),
+    pytest.param("cavity_square_6x6", ["cavity mode along z", "into cavity output"],
+                 id="cavity"),
+    pytest.param("chiral_waveguide_defective", ["coupling matrix is defective",
+                                                "Eigenvalue 0 of 12"], id="chiral-defective"),
+])
+def test_each_environment_opens_from_a_file(tab, name, words):
+    path = ROOT / "scenarios" / f"{name}.json"
+    tab.page.locator("input[type=file]").set_input_files(str(path))
+    from physics import scenario as scn
+
+    n = scn.load(path).emitters().n
+    tab.wait_for_points(lambda k: k == n)
+    deadline = time.time() + 30
+    text = ""
+    while not all(w in text for w in words) and time.time() < deadline:
+        time.sleep(0.3)
+        text = tab.text()
+    for w in words:
+        assert w in text, w
+    drawn = tab.js("return doc.get_model_by_name('choir-environment-lines').data.xs.length + "
+                   "doc.get_model_by_name('choir-environment-rings').data.x.length")
+    assert drawn >= 1  # the waveguide or cavity axis is drawn in the array view
+    images = tab.js("return doc.get_model_by_name('choir-farfield-images').data.image.length")
+    assert images == (0 if "defective" in name else 2)  # no far field from meaningless vectors
+    tab.page.screenshot(path=str(ARTIFACTS / f"explorer-{name}.png"), full_page=True)

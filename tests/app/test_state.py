@@ -187,3 +187,13 @@ def test_dipole_forms_survive_a_session_unchanged(dipole):
     np.testing.assert_allclose(st.result.emitters.dipoles, sc.emitters().dipoles, atol=1e-15)
     if dipole.get("phi_deg", 0.0) <= 180.0:
         assert back.dipole == sc.dipole  # bit for bit
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_a_freshly_loaded_scenario_is_not_marked_modified(path):
+    st = ExplorerState(scn.load(path))
+    st.solve()
+    assert not st.is_modified()
+    if st.lattice != "explicit":
+        st.spacing = st.spacing * 1.01
+        assert st.is_modified()

@@ -39,7 +39,7 @@ __all__ = ["CavityMode", "MARKOV_RATIO"]
 _AXES = {"x": 0, "y": 1, "z": 2}
 _UNIT = {"x": (1.0, 0.0, 0.0), "y": (0.0, 1.0, 0.0), "z": (0.0, 0.0, 1.0)}
 
-#: The bad-cavity description is flagged when 2 g_coll > MARKOV_RATIO · κ, with
+#: The bad-cavity description is flagged when 2 g_coll ≥ MARKOV_RATIO · κ, with
 #: g_coll = √(Σ|g_i|²) the collective coupling (vacuum Rabi splitting 2 g_coll).
 MARKOV_RATIO = 0.5
 
@@ -128,7 +128,7 @@ class CavityMode(Summable):
 
     def check(self, em: Emitters) -> list[str]:
         gc = self.collective_coupling(em)
-        if 2.0 * gc > MARKOV_RATIO * self.kappa:
+        if 2.0 * gc >= MARKOV_RATIO * self.kappa:  # the message asks for a strict <
             return [f"cavity: collective coupling 2·g_coll = {2 * gc:.3g} Γ0 is not small "
                     f"compared with κ = {self.kappa:g} Γ0 (needs 2·g_coll < "
                     f"{MARKOV_RATIO:g}·κ): the array and the mode are (near) strong coupling, "

@@ -99,6 +99,9 @@ class Combined(Summable):
 
     def emitted_power(self, em: Emitters, amplitudes: np.ndarray) -> dict[str, float]:
         out: dict[str, float] = {}
-        for p in self.parts:
-            out.update(p.emitted_power(em, amplitudes))
+        for k, p in enumerate(self.parts):
+            for name, value in p.emitted_power(em, amplitudes).items():
+                if name in out:  # two parts of one kind: keep both, or the sum is lost
+                    name = f"{name} (part {k + 1})"
+                out[name] = value
         return out

@@ -23,7 +23,7 @@ from physics.lattices import ring_radius
 from physics.waveguide import guided_figures
 
 from .state import NEAR_FIELD_WARN, ExplorerState
-from .views import ArrayView, FarFieldView, SpectrumView, mode_card_html
+from .views import ArrayView, FarFieldView, GuidedView, SpectrumView, mode_card_html
 
 __all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
 
@@ -360,6 +360,14 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         if scenario is not None:
             state.apply_scenario(scenario, solve=False)
     spectrum, array, far = SpectrumView(state), ArrayView(state), FarFieldView(state)
+    guided = GuidedView(state)
+    guided_row = pn.Column(
+        pn.pane.HTML("<b>Guided probe and decay</b> <span style='font-size:11px;color:#555'>"
+                     "(exact without eigenvectors: a weak guided probe in linear response, and "
+                     "e<sup>−iHt</sup> acting on one excited emitter)</span>"),
+        pn.Row(*guided.figures, sizing_mode="stretch_width"), sizing_mode="stretch_width",
+        visible=guided.visible)
+    state.param.watch(lambda *_: setattr(guided_row, "visible", guided.visible), "result")
     sidebar, widgets = _controls(state)
     card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
     state.param.watch(lambda *_: setattr(card, "object", mode_card_html(state)),
@@ -421,11 +429,12 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.Row(pn.Column(far.figure, ff_note, sizing_mode="stretch_width"),
                pn.Column(card, sizing_mode="stretch_width", max_width=420),
                sizing_mode="stretch_width"),
-        model, sizing_mode="stretch_width")
+        guided_row, model, sizing_mode="stretch_width")
     page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
                      sizing_mode="stretch_both")
     page.explorer_state = state  # tests and notebooks reach the session state here
-    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "widgets": widgets,
+    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "guided": guided,
+                           "widgets": widgets,
                            "spinner": spinner, "error": error, "caution": caution}
 
     if served:

@@ -22,6 +22,7 @@ from physics.geometry import Emitters, nearest_neighbour_distance
 from physics.hamiltonian import ModelLimitWarning
 from physics.modes import DefectiveMatrixWarning, Modes, solve_modes
 from physics.units import TRANSITIONS, Transition
+from physics.waveguide import guided_figures, guided_response
 
 __all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
            "NEAR_FIELD_WARN", "FAR_FIELD_PIXELS"]
@@ -37,9 +38,9 @@ FAR_FIELD_PIXELS = 121
 DEFECTIVE_NOTE = (
     "The coupling matrix is defective (a chiral waveguide makes it triangular, with all "
     "eigenvalues equal): the spectrum still shows the eigenvalues, but eigenvectors carry no "
-    "meaning, so mode profiles, far fields, lens and channel figures are not shown. Driven "
-    "transmission and time evolution — the meaningful observables here — come with the "
-    "driving features.")
+    "meaning, so mode profiles, far fields, lens and channel figures are not shown. What is "
+    "meaningful is shown under 'Guided probe and decay': the transmission of a guided probe "
+    "and the decay after exciting the first emitter, both computed without eigenvectors.")
 
 #: Most undo steps kept.
 UNDO_DEPTH = 50
@@ -69,6 +70,7 @@ class Result:
     warnings: tuple[str, ...]
     environment: Any = None  # the environment model (physics object)
     defective: bool = False  # eigenvectors meaningless (e.g. chiral waveguide)
+    guided: dict | None = None  # waveguide probe spectrum and decay curve (see physics.waveguide)
 
 
 @dataclass(frozen=True)
@@ -425,7 +427,12 @@ class ExplorerState(param.Parameterized):
                           if not issubclass(w.category, DefectiveMatrixWarning))
             if defective:
                 notes += (DEFECTIVE_NOTE,)
-            return Result(gen, sc, em, modes, notes, env, defective)
+            guided = None
+            if guided_figures(env) is not None:
+                single = float(-2.0 * np.diagonal(env.coupling(em)).imag.max())  # Γ of one emitter
+                span = max(10.0 * single, 2.0 * float(modes.decay_rates.max()))
+                guided = guided_response(em, env, np.linspace(-span, span, 401), 20.0 / single)
+            return Result(gen, sc, em, modes, notes, env, defective, guided)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
 

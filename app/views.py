@@ -21,7 +21,8 @@ from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
 from .state import DEFECTIVE_NOTE, ExplorerState
 
-__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "mode_card_html", "PHASE_PALETTE",
+__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "GuidedView", "mode_card_html",
+           "PHASE_PALETTE",
            "FIGURE_LABELS"]
 
 #: Readable names of the mode figures used for colouring.
@@ -375,6 +376,57 @@ class FarFieldView:
         frac = mres.collected_up if st.lens_axis == "+z" else mres.collected_down
         self.lens_label.text = (f"lens NA {mres.na:.2f} along {st.lens_axis}: collects "
                                 f"{100 * frac:.3g} % of mode {mres.mode}'s emission")
+
+
+class GuidedView:
+    """For arrays on a waveguide: guided probe transmission/reflection and a decay curve.
+
+    Both are computed without eigenvectors (Schur solves and e^{−iHt} acting on a
+    vector), so they stay meaningful for a perfectly chiral guide.
+    """
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        self.spectrum = ColumnDataSource(dict(x=[], t2=[], r2=[]), name="choir-guided-spectrum")
+        self.decay = ColumnDataSource(dict(t=[], p=[]), name="choir-guided-decay")
+        s = figure(height=250, sizing_mode="stretch_width", tools="pan,wheel_zoom,reset,save",
+                   toolbar_location="above", y_range=Range1d(-0.02, 1.05),
+                   title="Guided probe from the −axis end", name="choir-guided-probe")
+        s.line("x", "t2", source=self.spectrum, line_width=2, color="#00897b",
+               legend_label="transmission |t|²")
+        s.line("x", "r2", source=self.spectrum, line_width=2, color="#ad1457",
+               line_dash="dashed", legend_label="reflection |r|²")
+        s.legend.location = "bottom_left"
+        s.legend.label_text_font_size = "10px"
+        s.yaxis.axis_label = "power fraction"
+        d = figure(height=250, sizing_mode="stretch_width", y_axis_type="log",
+                   tools="pan,wheel_zoom,reset,save", toolbar_location="above",
+                   title="Decay after exciting the first emitter upstream",
+                   name="choir-guided-decay-plot")
+        d.line("t", "p", source=self.decay, line_width=2, color="#4527a0")
+        d.yaxis.axis_label = "excited population Σ|c_j|²"
+        self.figures = (s, d)
+        state.param.watch(self.update, ["result", "units", "transition", "wavelength_nm",
+                                        "linewidth_mhz"])
+        self.update()
+
+    @property
+    def visible(self) -> bool:
+        res = self.state.result
+        return res is not None and res.guided is not None
+
+    def update(self, *_) -> None:
+        res, st = self.state.result, self.state
+        if res is None or res.guided is None:
+            return
+        g = res.guided
+        self.spectrum.data = dict(x=st.to_frequency(g["detunings"]), t2=np.abs(g["t"]) ** 2,
+                                  r2=np.abs(g["r"]) ** 2)
+        self.decay.data = dict(t=st.to_time(g["times"]),
+                               p=np.maximum(g["population"], 1e-300))
+        fu = "Δ/2π [MHz]" if st.units == "lab" else "Δ [Γ0]"
+        self.figures[0].xaxis.axis_label = f"probe detuning {fu}"
+        self.figures[1].xaxis.axis_label = f"time [{st.time_label()}]"
 
 
 def mode_card_html(state: ExplorerState) -> str:

@@ -13,12 +13,12 @@ from typing import Sequence
 import numpy as np
 
 from physics import scenario as scn
-from physics.exports import far_field_csv, spectrum_csv
+from physics.exports import far_field_csv, guided_csv, spectrum_csv
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
 from physics.hamiltonian import ModelLimitWarning
 from physics.modes import DefectiveMatrixWarning, solve_modes
-from physics.waveguide import guided_figures
+from physics.waveguide import guided_figures, guided_response
 from physics.units import TRANSITIONS
 
 __all__ = ["main"]
@@ -158,6 +158,17 @@ def cmd_solve(args) -> int:
                 far_field_csv(em, c, label=f"of mode {sel}", weight=env.free_space_weight),
                 encoding="utf-8")
             written.append(out / "far_field.csv")
+    if guided_figures(env) is not None:
+        diag = -2.0 * np.diag(env.coupling(em)).imag
+        span = max(10.0 * float(diag.max()), 2.0 * float(rates.max()))
+        resp = guided_response(em, env, np.linspace(-span, span, 801), 20.0 / float(diag.max()))
+        probe_text, decay_text = guided_csv(resp, tr)
+        (out / "guided_probe.csv").write_text(probe_text, encoding="utf-8")
+        (out / "decay.csv").write_text(decay_text, encoding="utf-8")
+        written += [out / "guided_probe.csv", out / "decay.csv"]
+        mid = len(resp["detunings"]) // 2
+        lines.append(f"  guided probe on resonance: transmission {abs(resp['t'][mid]) ** 2:.4g}, "
+                     f"reflection {abs(resp['r'][mid]) ** 2:.4g} (exact, no eigenvectors used)")
     lines += [
         f"  check: Σ decay rates = {rates.sum():.6g} Γ0 (sum of single-emitter rates "
         f"{single:.6g} Γ0 expected)",

@@ -16,7 +16,7 @@ from .geometry import Emitters
 from .modes import Modes
 from .units import Transition
 
-__all__ = ["spectrum_csv", "far_field_csv", "SPECTRUM_COLUMNS"]
+__all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
 SPECTRUM_COLUMNS = {
@@ -67,3 +67,24 @@ def far_field_csv(em: Emitters, amplitudes: np.ndarray, *, label: str = "",
     for t, p, v in zip(np.degrees(TH.ravel()), np.degrees(PH.ravel()), power):
         w.writerow([f"{t:.6g}", f"{p:.6g}", repr(float(v))])
     return buf.getvalue()
+
+
+def guided_csv(response: dict, transition: Transition) -> tuple[str, str]:
+    """Guided probe spectrum and decay curve (physics.waveguide.guided_response) as CSV texts."""
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["detuning_gamma0", "detuning_mhz", "t_real", "t_imag", "r_real", "r_imag",
+                "transmission", "reflection"])
+    for d, t, r in zip(response["detunings"], response["t"], response["r"]):
+        w.writerow([repr(float(d)), repr(float(transition.frequency_mhz(d))),
+                    repr(float(t.real)), repr(float(t.imag)), repr(float(r.real)),
+                    repr(float(r.imag)), repr(float(abs(t) ** 2)), repr(float(abs(r) ** 2))])
+    probe = buf.getvalue()
+    buf = io.StringIO()
+    buf.write(f"# excited population after exciting emitter {response['first']} "
+              f"(furthest upstream)\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["time_per_gamma0", "time_ns", "population"])
+    for t, p in zip(response["times"], response["population"]):
+        w.writerow([repr(float(t)), repr(float(transition.time_ns(t))), repr(float(p))])
+    return probe, buf.getvalue()

@@ -99,3 +99,19 @@ def test_console_script_is_declared():
     """pyproject declares the `choir` entry point (setuptools convention)."""
     text = (ROOT / "pyproject.toml").read_text()
     assert 'choir = "app.cli:main"' in text
+
+
+def test_chiral_guide_gets_a_plain_statement_and_exact_guided_outputs(tmp_path):
+    """Perfectly chiral, 12 emitters, Γ_f = 1, Γ' = 0.1 Γ0: eigenvectors are meaningless, the
+    guided transmission on resonance is ((Γ_f − Γ')/(Γ_f + Γ'))^(2N) (cascaded single-emitter
+    results, Shen & Fan, Opt. Lett. 30, 2001 (2005), from memory)."""
+    res = run_cli("solve", "scenarios/chiral_waveguide_defective.json", "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    assert "coupling matrix is defective" in res.stdout
+    assert not (tmp_path / "far_field.csv").exists()
+    probe = np.loadtxt(tmp_path / "guided_probe.csv", delimiter=",", skiprows=1)
+    mid = probe[np.argmin(np.abs(probe[:, 0]))]
+    assert abs(mid[0]) < 1e-12
+    assert mid[6] == pytest.approx((0.9 / 1.1) ** 24, rel=1e-9)
+    decay = np.loadtxt(tmp_path / "decay.csv", delimiter=",", skiprows=2)
+    assert decay[0, 2] == pytest.approx(1.0) and np.all(np.diff(decay[:, 2]) <= 1e-12)

@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-import warnings
 from pathlib import Path
 from typing import Sequence
 
@@ -16,9 +15,8 @@ from physics import scenario as scn
 from physics.exports import far_field_csv, guided_csv, spectrum_csv
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
-from physics.hamiltonian import ModelLimitWarning
-from physics.modes import DefectiveMatrixWarning, solve_modes
-from physics.waveguide import guided_figures, guided_response
+from physics.solution import solve_scenario
+from physics.waveguide import guided_figures
 from physics.units import TRANSITIONS
 
 __all__ = ["main"]
@@ -103,14 +101,9 @@ def cmd_validate(args) -> int:
 
 def cmd_solve(args) -> int:
     sc = _load(args.scenario)
-    em = sc.emitters()
     tr = sc.transition
-    env = sc.environment_model()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", DefectiveMatrixWarning)
-        warnings.simplefilter("always", ModelLimitWarning)
-        modes = solve_modes(em, env)
-    defective = any(issubclass(w.category, DefectiveMatrixWarning) for w in caught)
+    sol = solve_scenario(sc, guided_points=801)
+    em, env, modes, defective = sol.emitters, sol.environment, sol.modes, sol.defective
     out = Path(args.out) if args.out else Path(Path(args.scenario).stem + "-results")
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -158,10 +151,8 @@ def cmd_solve(args) -> int:
                 far_field_csv(em, c, label=f"of mode {sel}", weight=env.free_space_weight),
                 encoding="utf-8")
             written.append(out / "far_field.csv")
-    if guided_figures(env) is not None:
-        diag = -2.0 * np.diag(env.coupling(em)).imag
-        span = max(10.0 * float(diag.max()), 2.0 * float(rates.max()))
-        resp = guided_response(em, env, np.linspace(-span, span, 801), 20.0 / float(diag.max()))
+    if sol.guided is not None:
+        resp = sol.guided
         probe_text, decay_text = guided_csv(resp, tr)
         (out / "guided_probe.csv").write_text(probe_text, encoding="utf-8")
         (out / "decay.csv").write_text(decay_text, encoding="utf-8")
@@ -174,8 +165,8 @@ def cmd_solve(args) -> int:
         f"{single:.6g} Γ0 expected)",
         f"  {MODEL_LIMITS}",
     ]
-    for w in caught:
-        lines.append(f"  warning: {w.message}")
+    for note in sol.notes:
+        lines.append(f"  warning: {note}")
     (out / "spectrum.csv").write_text(spectrum_csv(modes, tr), encoding="utf-8")
     np.savez_compressed(
         out / "modes.npz", eigenvalues=modes.eigenvalues, vectors=modes.vectors,

@@ -19,10 +19,9 @@ import param
 from physics import scenario as scn
 from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters, nearest_neighbour_distance
-from physics.hamiltonian import ModelLimitWarning
-from physics.modes import DefectiveMatrixWarning, Modes, solve_modes
+from physics.modes import Modes
+from physics.solution import solve_scenario
 from physics.units import TRANSITIONS, Transition
-from physics.waveguide import guided_figures, guided_response
 
 __all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
            "NEAR_FIELD_WARN", "FAR_FIELD_PIXELS"]
@@ -413,28 +412,13 @@ class ExplorerState(param.Parameterized):
 
     @staticmethod
     def _solve_job(gen: int, sc: scn.Scenario) -> Result | Exception:
-        import warnings
-
         try:
-            em = sc.emitters()
-            env = sc.environment_model()
-            with warnings.catch_warnings(record=True) as caught:
-                warnings.simplefilter("always", DefectiveMatrixWarning)
-                warnings.simplefilter("always", ModelLimitWarning)
-                modes = solve_modes(em, env)
-            defective = any(issubclass(w.category, DefectiveMatrixWarning) for w in caught)
-            notes = tuple(str(w.message) for w in caught
-                          if not issubclass(w.category, DefectiveMatrixWarning))
-            if defective:
-                notes += (DEFECTIVE_NOTE,)
-            guided = None
-            if guided_figures(env) is not None:
-                single = float(-2.0 * np.diagonal(env.coupling(em)).imag.max())  # Γ of one emitter
-                span = max(10.0 * single, 2.0 * float(modes.decay_rates.max()))
-                guided = guided_response(em, env, np.linspace(-span, span, 401), 20.0 / single)
-            return Result(gen, sc, em, modes, notes, env, defective, guided)
+            sol = solve_scenario(sc)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
+        notes = sol.notes + ((DEFECTIVE_NOTE,) if sol.defective else ())
+        return Result(gen, sc, sol.emitters, sol.modes, notes, sol.environment, sol.defective,
+                      sol.guided)
 
     def _accept_result(self, res: Result | Exception) -> None:
         if isinstance(res, Exception):

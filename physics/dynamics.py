@@ -14,7 +14,9 @@ from __future__ import annotations
 import numpy as np
 from scipy.sparse.linalg import expm_multiply
 
-__all__ = ["evolve"]
+from .geometry import Emitters
+
+__all__ = ["evolve", "single_emitter_state", "pulse_state", "decay_observables"]
 
 
 def evolve(H: np.ndarray, initial: np.ndarray, t_max: float, num: int = 200
@@ -44,3 +46,61 @@ def evolve(H: np.ndarray, initial: np.ndarray, t_max: float, num: int = 200
                          np.asarray(initial, dtype=complex),
                          start=0.0, stop=float(t_max), num=int(num), endpoint=True)
     return np.linspace(0.0, float(t_max), int(num)), amps
+
+
+def single_emitter_state(n: int, j: int) -> np.ndarray:
+    """c(0) with emitter j excited, (n,) complex."""
+    if not 0 <= j < n:
+        raise ValueError(f"emitter: {j} is out of range; allowed 0 to {n - 1}")
+    c = np.zeros(n, dtype=complex)
+    c[j] = 1.0
+    return c
+
+
+def pulse_state(em: Emitters, direction, polarization) -> np.ndarray:
+    """The state a short, weak, phase-matched plane-wave pulse writes (unit norm).
+
+    A pulse much shorter than 1/Γ_collective imprints c_j ∝ conj(d_j)·ε e^{ik0 k̂·r_j}
+    (a timed Dicke state): the drive pattern of that plane wave.
+
+    References
+    ----------
+    M. O. Scully, E. S. Fry, C. H. R. Ooi, K. Wódkiewicz, Phys. Rev. Lett. 96,
+    010501 (2006) (timed Dicke states).
+    """
+    from .driving import drive_from_field, plane_wave_field
+
+    c = drive_from_field(em, plane_wave_field(em.positions, direction, polarization))
+    norm = np.linalg.norm(c)
+    if norm < 1e-12:
+        raise ValueError("polarization: this pulse does not couple to the dipoles (c = 0)")
+    return c / norm
+
+
+def decay_observables(H: np.ndarray, times: np.ndarray, amplitudes: np.ndarray,
+                      channels=None) -> dict[str, np.ndarray]:
+    """Population Σ|c|² and emitted power c†Γc vs time, optionally split by channel.
+
+    Parameters
+    ----------
+    H : (N, N) complex ndarray [Γ0]
+    times : (T,) float ndarray [1/Γ0]
+    amplitudes : (T, N) complex ndarray (from :func:`evolve`)
+    channels : (emitters, environment), optional
+        If given, ``environment.emitted_power(emitters, c(t))`` is evaluated at
+        every time: power into each channel [Γ0].
+
+    Returns
+    -------
+    dict with "times", "population", "power" and, with channels, one entry per channel.
+    """
+    gamma = 1j * (H - H.conj().T)
+    c = np.asarray(amplitudes)
+    out = {"times": np.asarray(times), "population": np.sum(np.abs(c) ** 2, axis=1),
+           "power": np.real(np.einsum("ti,ij,tj->t", c.conj(), gamma, c))}
+    if channels is not None:
+        em, env = channels
+        per_time = [env.emitted_power(em, row) for row in c]
+        for name in per_time[0]:
+            out[name] = np.array([p[name] for p in per_time])
+    return out

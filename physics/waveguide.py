@@ -150,18 +150,26 @@ class Waveguide(Summable):
             out["waveguide loss Γ'"] = float(self.gamma_loss * np.vdot(c, c).real)
         return out
 
-    def probe(self, em: Emitters) -> np.ndarray:
-        """Ω_j = √Γ_f e^{iks_j}: a guided probe entering at the −axis end, travelling +axis.
+    def probe(self, em: Emitters, from_end: str = "-") -> np.ndarray:
+        """Drive Ω_j of a guided probe of unit photon flux.
 
-        Amplitudes are per unit input amplitude; with (H − Δ)c = −Ω the guided
-        transmission and reflection follow from :meth:`transmission`.
+        ``from_end="-"``: entering at the −axis end, travelling +axis,
+        Ω_j = √Γ_f e^{iks_j}; ``"+"``: entering at the +axis end, Ω_j = √Γ_b e^{−iks_j}.
         """
-        return np.sqrt(self.gamma_forward) * np.exp(1j * self.k_guided * self.coordinates(em))
+        s = self.coordinates(em)
+        if from_end == "-":
+            return np.sqrt(self.gamma_forward) * np.exp(1j * self.k_guided * s)
+        if from_end == "+":
+            return np.sqrt(self.gamma_backward) * np.exp(-1j * self.k_guided * s)
+        raise ValueError(f"from_end: {from_end!r} is not allowed; allowed: -, +")
 
-    def transmission(self, em: Emitters, amplitudes: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def transmission(self, em: Emitters, amplitudes: np.ndarray, from_end: str = "-"
+                     ) -> tuple[np.ndarray, np.ndarray]:
         """Guided transmission t and reflection r for steady states c (…, N).
 
-        t = 1 − i√Γ_f Σ_j e^{−iks_j} c_j,  r = −i√Γ_b Σ_j e^{iks_j} c_j.
+        For a probe from the −axis end: t = 1 − i√Γ_f Σ_j e^{−iks_j} c_j and
+        r = −i√Γ_b Σ_j e^{iks_j} c_j (phases referred to s = 0); from the +axis
+        end the roles of Γ_f and Γ_b and the signs of the phases swap.
 
         References
         ----------
@@ -170,8 +178,15 @@ class Waveguide(Summable):
         """
         c = np.asarray(amplitudes, dtype=complex)
         phase = np.exp(1j * self.k_guided * self.coordinates(em))
-        t = 1.0 - 1j * np.sqrt(self.gamma_forward) * (c @ np.conj(phase))
-        r = -1j * np.sqrt(self.gamma_backward) * (c @ phase)
+        if from_end == "+":
+            phase = np.conj(phase)
+            g_in, g_back = self.gamma_backward, self.gamma_forward
+        elif from_end == "-":
+            g_in, g_back = self.gamma_forward, self.gamma_backward
+        else:
+            raise ValueError(f"from_end: {from_end!r} is not allowed; allowed: -, +")
+        t = 1.0 - 1j * np.sqrt(g_in) * (c @ np.conj(phase))
+        r = -1j * np.sqrt(g_back) * (c @ phase)
         return t, r
 
     def describe(self) -> str:

@@ -5,14 +5,19 @@ Exit codes: 0 success, 2 bad input (message on stderr), 1 unexpected failure.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+from dataclasses import replace
 from pathlib import Path
 from typing import Sequence
 
 import numpy as np
 
 from physics import scenario as scn
-from physics.exports import far_field_csv, guided_csv, spectrum_csv
+from physics.driving import fit_resonance, probe_scan
+from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
+from physics.exports import decay_csv, far_field_csv, guided_csv, scan_csv, spectrum_csv
+from physics.hamiltonian import coupling_matrix
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
 from physics.solution import solve_scenario
@@ -271,6 +276,103 @@ def cmd_new(args) -> int:
     return 0
 
 
+def _out_dir(args, suffix: str) -> Path:
+    out = Path(args.out) if args.out else Path(Path(args.scenario).stem + suffix)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"--out: cannot create {out}: {exc.strerror}") from None
+    return out
+
+
+def cmd_scan(args) -> int:
+    sc = _load(args.scenario)
+    tr = sc.transition
+    probe = sc.probe_model()
+    changes = {k: v for k, v in (("kind", args.probe), ("detuning_min", args.detuning_min),
+                                 ("detuning_max", args.detuning_max), ("points", args.points),
+                                 ("waist", args.waist), ("from_end", args.from_end))
+               if v is not None}
+    try:
+        probe = replace(probe, **changes)
+        em, env = sc.emitters(), sc.environment_model()
+        scan = probe_scan(em, env, probe)
+    except ValueError as exc:
+        flag = {"kind": "--probe", "detuning_min": "--detuning-min", "points": "--points",
+                "waist": "--waist", "from_end": "--from-end"}.get(str(exc).split(":")[0].split(
+                    ".")[-1].split(",")[0])
+        raise UsageError(f"{flag}: {str(exc).split(': ', 1)[-1]}" if flag else str(exc)) from None
+    out = _out_dir(args, "-scan")
+    (out / "scan.csv").write_text(scan_csv(scan, tr), encoding="utf-8")
+    if probe.kind == "guided":
+        signal, what = 1.0 - np.abs(scan["t"]) ** 2, "loss from the guided probe 1 − |t|²"
+    elif probe.kind == "gaussian_beam":
+        signal, what = np.abs(scan["r"]) ** 2, "reflection |r|² into the beam's mode"
+    else:
+        signal, what = scan["extinction"], "extinguished power [Γ0 per unit field²]"
+    fit = fit_resonance(scan["detunings"], signal)
+    lines = [
+        f"Choir scan — {sc.name or Path(args.scenario).name}",
+        f"  probe: {probe.kind} from Δ = {probe.detuning_min:g} to {probe.detuning_max:g} Γ0 "
+        f"({probe.points} points)",
+        f"  peak {what}: {signal.max():.4g} at Δ = {scan['detunings'][int(np.argmax(signal))]:.4g} Γ0",
+        f"  fitted Lorentzian: centre {fit['centre']:+.4g} Γ0 "
+        f"({_hz(float(tr.frequency_mhz(fit['centre'])) * 1e6)}), width (FWHM) "
+        f"{fit['width']:.4g} Γ0 ({_hz(float(tr.frequency_mhz(fit['width'])) * 1e6)})"
+        + ("" if fit["residual"] < 0.05 else
+           f"  [poor fit, largest residual {100 * fit['residual']:.0f} % — several resonances?]"),
+    ]
+    if "cross_section" in scan:
+        lines.append(f"  peak extinction cross-section {scan['cross_section'].max():.4g} λ0² "
+                     f"({scan['cross_section'].max() * tr.wavelength_nm ** 2 * 1e-6:.4g} µm²)")
+    lines += [f"  {MODEL_LIMITS}", "  Linear response: valid for probe intensities far below "
+              "saturation. Laser safety follows local rules and licensed practice, which Choir "
+              "does not assess.", f"  wrote {out / 'scan.csv'}"]
+    print("\n".join(lines))
+    return 0
+
+
+def cmd_decay(args) -> int:
+    sc = _load(args.scenario)
+    tr = sc.transition
+    sol = solve_scenario(sc)
+    em, env = sol.emitters, sol.environment
+    H = coupling_matrix(em, env)
+    try:
+        if args.initial == "emitter":
+            c0 = single_emitter_state(em.n, args.emitter)
+            label = f"emitter {args.emitter} excited"
+        elif args.initial == "mode":
+            if sol.defective:
+                raise UsageError("--initial mode: the coupling matrix is defective, its "
+                                 "eigenvectors mean nothing; use --initial emitter or pulse")
+            if not 0 <= args.mode < em.n:
+                raise UsageError(f"--mode: {args.mode} is out of range; allowed 0 to {em.n - 1}")
+            c0 = sol.modes.vectors[:, args.mode]
+            label = f"mode {args.mode} excited"
+        else:
+            probe = sc.probe_model()
+            c0 = pulse_state(em, probe.direction, probe.polarization_vector())
+            label = "state written by a short plane-wave pulse"
+        times, amps = evolve(H, c0, args.t_max, args.points)
+    except ValueError as exc:
+        raise UsageError(f"--{str(exc).split(':')[0].replace('_', '-')}: "
+                         f"{str(exc).split(': ', 1)[-1]}") from None
+    obs = decay_observables(H, times, amps, channels=(em, env))
+    out = _out_dir(args, "-decay")
+    (out / "decay.csv").write_text(decay_csv(obs, tr, label), encoding="utf-8")
+    pop = obs["population"]
+    below = np.flatnonzero(pop <= np.exp(-1.0))
+    t_e = f"{times[below[0]]:.4g}/Γ0 ({_seconds(float(tr.time_ns(times[below[0]])) * 1e-9)})" \
+        if below.size else f"later than {args.t_max:g}/Γ0"
+    print("\n".join([
+        f"Choir decay — {sc.name or Path(args.scenario).name}: {label}",
+        f"  population falls to 1/e at t = {t_e}; at t = {args.t_max:g}/Γ0 it is {pop[-1]:.4g}",
+        "  computed as e^{−iHt} acting on the initial state (exact also for defective matrices)",
+        f"  {MODEL_LIMITS}", f"  wrote {out / 'decay.csv'}"]))
+    return 0
+
+
 def cmd_serve(args) -> int:
     sc = _load(args.scenario) if args.scenario else None
     if not 1 <= args.port <= 65535:
@@ -355,6 +457,33 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--name", help="scenario name")
     n.set_defaults(func=cmd_new)
 
+    s2 = sub.add_parser("scan", help="detuning scan of a weak probe: extinction, scattering, "
+                        "transmission and reflection (CSV), fitted resonance")
+    s2.add_argument("scenario")
+    s2.add_argument("--probe", choices=["plane_wave", "gaussian_beam", "guided"],
+                    help="probe kind (default: the scenario's probe, else a plane wave along +z)")
+    s2.add_argument("--detuning-min", dest="detuning_min", type=float, help="[Γ0]")
+    s2.add_argument("--detuning-max", dest="detuning_max", type=float, help="[Γ0]")
+    s2.add_argument("--points", type=int, help="number of detunings (3 to 20001)")
+    s2.add_argument("--waist", type=float, help="Gaussian beam waist [λ0]")
+    s2.add_argument("--from-end", dest="from_end", choices=["-", "+"],
+                    help="guided probe: enter at the −axis or +axis end")
+    s2.add_argument("--out", help="output folder (default: <scenario name>-scan)")
+    s2.set_defaults(func=cmd_scan)
+
+    s3 = sub.add_parser("decay", help="time evolution from an initial state: population and "
+                        "emitted power per channel (CSV)")
+    s3.add_argument("scenario")
+    s3.add_argument("--initial", choices=["emitter", "mode", "pulse"], default="emitter",
+                    help="one excited emitter, one mode, or the state a short pulse writes "
+                         "(the scenario's probe direction and polarisation)")
+    s3.add_argument("--emitter", type=int, default=0, help="with --initial emitter (index)")
+    s3.add_argument("--mode", type=int, default=0, help="with --initial mode (0 = most subradiant)")
+    s3.add_argument("--t-max", dest="t_max", type=float, default=10.0, help="last time [1/Γ0]")
+    s3.add_argument("--points", type=int, default=201, help="time points")
+    s3.add_argument("--out", help="output folder (default: <scenario name>-decay)")
+    s3.set_defaults(func=cmd_decay)
+
     e = sub.add_parser("serve", help="open the explorer in the browser (localhost by default)")
     e.add_argument("scenario", nargs="?", help="scenario file to start from (.json)")
     e.add_argument("--port", type=int, default=5006, help="TCP port (default 5006)")
@@ -382,6 +511,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("choir: error: not enough memory for this array on this machine; reduce N",
               file=sys.stderr)
         return 2
+    except BrokenPipeError:  # output piped into e.g. `head`, which stopped reading
+        sys.stdout = open(os.devnull, "w")
+        return 0
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -37,6 +37,7 @@ theorem).
 from __future__ import annotations
 
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
@@ -57,6 +58,9 @@ __all__ = [
     "gaussian_beam_amplitude",
     "beam_transmission",
     "fit_resonance",
+    "Probe",
+    "probe_scan",
+    "field_intensity_map",
 ]
 
 
@@ -244,3 +248,143 @@ def fit_resonance(detunings: np.ndarray, signal: np.ndarray) -> dict[str, float]
     resid = np.max(np.abs(_lorentzian(x, *popt) - y)) / max(float(np.ptp(y)), 1e-300)
     return {"centre": float(popt[0]), "width": float(abs(popt[1])), "height": float(popt[2]),
             "floor": float(popt[3]), "residual": float(resid)}
+
+
+@dataclass(frozen=True)
+class Probe:
+    """A weak probe and the detuning range to scan.
+
+    Parameters
+    ----------
+    kind : "plane_wave", "gaussian_beam" or "guided"
+    direction : (3,) float
+        Plane wave: propagation direction (normalised here).
+    polarization : str or (3,) complex
+        "x", "y", "z", "sigma+", "sigma-" or a vector (made transverse).
+    waist : float
+        Gaussian beam waist [λ0] (beam along ±z through ``focus``).
+    focus : (3,) float [λ0]
+    beam_direction : "+z" or "-z"
+    from_end : "-" or "+"
+        Guided probe: the end of the (first) waveguide it enters from.
+    detuning_min, detuning_max : float [Γ0]
+    points : int
+    """
+
+    kind: str = "plane_wave"
+    direction: tuple = (0.0, 0.0, 1.0)
+    polarization: object = "x"
+    waist: float = 2.0
+    focus: tuple = (0.0, 0.0, 0.0)
+    beam_direction: str = "+z"
+    from_end: str = "-"
+    detuning_min: float = -5.0
+    detuning_max: float = 5.0
+    points: int = 401
+
+    def __post_init__(self) -> None:
+        if self.kind not in ("plane_wave", "gaussian_beam", "guided"):
+            raise ValueError(f"kind: {self.kind!r} is not allowed; allowed: plane_wave, "
+                             f"gaussian_beam, guided")
+        if not (np.isfinite(self.detuning_min) and np.isfinite(self.detuning_max)
+                and -1e6 <= self.detuning_min < self.detuning_max <= 1e6):
+            raise ValueError(f"detuning_min, detuning_max: {self.detuning_min!r} to "
+                             f"{self.detuning_max!r} is not a range; allowed −1e6 ≤ min < max "
+                             f"≤ 1e6 Γ0")
+        if not 3 <= int(self.points) <= 20001:
+            raise ValueError(f"points: {self.points!r} is out of range; allowed 3 to 20001")
+
+    @property
+    def detunings(self) -> np.ndarray:
+        return np.linspace(self.detuning_min, self.detuning_max, int(self.points))
+
+    def polarization_vector(self) -> np.ndarray:
+        if isinstance(self.polarization, str):
+            from .geometry import dipole_vector
+
+            return dipole_vector(self.polarization)
+        return _unit(self.polarization, "polarization")
+
+    def incident_field(self, points: np.ndarray) -> np.ndarray:
+        """E_in at points (M, 3) [λ0] (not defined for guided probes)."""
+        if self.kind == "plane_wave":
+            return plane_wave_field(points, self.direction, self.polarization_vector())
+        if self.kind == "gaussian_beam":
+            return gaussian_beam_field(points, self.waist, self.focus, self.beam_direction,
+                                       self.polarization_vector())
+        raise ValueError("kind: a guided probe has no free-space incident field")
+
+
+def _guide(environment):
+    from .waveguide import Waveguide
+
+    parts = getattr(environment, "parts", (environment,))
+    guides = [p for p in parts if isinstance(p, Waveguide)]
+    if not guides:
+        raise ValueError("probe.kind: a guided probe needs a waveguide in the environment")
+    return guides[0]
+
+
+def probe_scan(em: Emitters, environment, probe: Probe) -> dict[str, np.ndarray]:
+    """Everything a detuning scan measures, as arrays over ``probe.detunings``.
+
+    Always: "detunings" [Γ0], "extinction" and "scattered" power [Γ0] (equal in
+    this model), "amplitudes" (D, N).  Plane wave: "cross_section" [λ0²]
+    (extinction per incident flux).  Gaussian beam (from −z, going +z) and
+    guided probes: complex "t" and "r" into the probe's own mode and the
+    reversed one, per unit incident photon flux.
+    """
+    from .hamiltonian import coupling_matrix
+
+    H = coupling_matrix(em, environment)
+    if probe.kind == "guided":
+        guide = _guide(environment)
+        drive = guide.probe(em, probe.from_end)
+    else:
+        drive = drive_from_field(em, probe.incident_field(em.positions))
+    d = probe.detunings
+    c = steady_states(H, drive, d)
+    out = {"detunings": d, "amplitudes": c, "extinction": extinguished_power(drive, c),
+           "scattered": scattered_power(H, c)}
+    if probe.kind == "plane_wave":
+        out["cross_section"] = out["extinction"] / plane_wave_flux()
+    elif probe.kind == "gaussian_beam":
+        t, r = beam_transmission(em, c, probe.waist, probe.focus, probe.polarization_vector())
+        if probe.beam_direction == "-z":
+            raise ValueError("beam_direction: reflection/transmission are computed for a beam "
+                             "going +z; mirror the array instead")
+        out["t"], out["r"] = t, r
+    else:
+        out["t"], out["r"] = guide.transmission(em, c, probe.from_end)
+    return out
+
+
+def field_intensity_map(em: Emitters, probe: Probe, amplitudes: np.ndarray, plane: str = "xz",
+                        half_width: float = 3.0, pixels: int = 101, offset: float = 0.0
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """|E_in + E_sc|² on a square of a coordinate plane through the array centre.
+
+    Parameters
+    ----------
+    plane : "xy", "xz" or "yz"
+    half_width : float [λ0]
+    offset : float [λ0]
+        Shift of the plane along its normal from the array centre.
+
+    Returns
+    -------
+    u, v : (P,) coordinates along the plane's two axes [λ0]
+    intensity : (P, P) float, row = v, column = u; NaN next to an emitter.
+    Free-space probes only (the scattered field is the free-space one).
+    """
+    axes = {"xy": (0, 1, 2), "xz": (0, 2, 1), "yz": (1, 2, 0)}[plane]
+    centre = em.positions.mean(axis=0)
+    u = np.linspace(-half_width, half_width, pixels)
+    U, V = np.meshgrid(u, u, indexing="xy")
+    pts = np.zeros((U.size, 3)) + centre
+    pts[:, axes[0]] += U.ravel()
+    pts[:, axes[1]] += V.ravel()
+    pts[:, axes[2]] += offset
+    total = probe.incident_field(pts) + scattered_field(em, amplitudes, pts)
+    return (u + centre[axes[0]], u + centre[axes[1]],
+            np.sum(np.abs(total) ** 2, axis=1).reshape(U.shape))

@@ -16,7 +16,8 @@ from .geometry import Emitters
 from .modes import Modes
 from .units import Transition
 
-__all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "SPECTRUM_COLUMNS"]
+__all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv",
+           "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
 SPECTRUM_COLUMNS = {
@@ -88,3 +89,39 @@ def guided_csv(response: dict, transition: Transition) -> tuple[str, str]:
     for t, p in zip(response["times"], response["population"]):
         w.writerow([repr(float(t)), repr(float(transition.time_ns(t))), repr(float(p))])
     return probe, buf.getvalue()
+
+
+def scan_csv(scan: dict, transition: Transition) -> str:
+    """A detuning scan (physics.driving.probe_scan) as CSV text: powers in Γ0,
+    cross-section in λ0², complex t and r per unit input photon flux."""
+    cols = ["detuning_gamma0", "detuning_mhz", "extinction_gamma0", "scattered_gamma0"]
+    if "cross_section" in scan:
+        cols.append("cross_section_lambda0_sq")
+    if "t" in scan:
+        cols += ["t_real", "t_imag", "r_real", "r_imag", "transmission", "reflection"]
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(cols)
+    for k, d in enumerate(scan["detunings"]):
+        row = [d, float(transition.frequency_mhz(d)), scan["extinction"][k], scan["scattered"][k]]
+        if "cross_section" in scan:
+            row.append(scan["cross_section"][k])
+        if "t" in scan:
+            t, r = scan["t"][k], scan["r"][k]
+            row += [t.real, t.imag, r.real, r.imag, abs(t) ** 2, abs(r) ** 2]
+        w.writerow([repr(float(v)) for v in row])
+    return buf.getvalue()
+
+
+def decay_csv(observables: dict, transition: Transition, label: str = "") -> str:
+    """Decay observables (physics.dynamics.decay_observables) as CSV text."""
+    names = [k for k in observables if k not in ("times",)]
+    buf = io.StringIO()
+    buf.write(f"# {label}: population (no unit) and emitted powers [Gamma0]\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["time_per_gamma0", "time_ns"] + [n.replace(" ", "_").replace(",", "")
+                                                 for n in names])
+    for k, t in enumerate(observables["times"]):
+        w.writerow([repr(float(t)), repr(float(transition.time_ns(t)))]
+                   + [repr(float(observables[n][k])) for n in names])
+    return buf.getvalue()

@@ -47,7 +47,7 @@ __all__ = [
 
 FORMAT = "choir-scenario"
 #: Version written by this Choir; files up to it are read (older ones migrated).
-VERSION = 2
+VERSION = 3
 #: Largest scenario file read [bytes].
 MAX_FILE_BYTES = 20_000_000
 
@@ -60,7 +60,12 @@ def _v1_to_v2(doc: dict) -> dict:
     return out
 
 
-MIGRATIONS: dict[int, Callable[[dict], dict]] = {1: _v1_to_v2}
+def _v2_to_v3(doc: dict) -> dict:
+    """Version 3 adds the optional probe block; nothing else changes."""
+    return dict(doc)
+
+
+MIGRATIONS: dict[int, Callable[[dict], dict]] = {1: _v1_to_v2, 2: _v2_to_v3}
 
 
 class ScenarioError(ValueError):
@@ -102,6 +107,23 @@ class Scenario:
     display_units: str = "lab"
     color_by: str = "participation_ratio"
     transition_preset: str | None = None
+    probe: tuple | None = None  # (key, value) pairs of a physics.driving.Probe
+
+    def probe_model(self):
+        """The probe of this scenario (a default plane wave along +z when none is given)."""
+        from .driving import Probe
+
+        if self.probe is None:
+            return Probe()
+        kw = dict(self.probe)
+        pol = kw.get("polarization")
+        if isinstance(pol, tuple):
+            kw["polarization"] = np.array(pol, dtype=complex)
+        try:
+            return Probe(**kw)
+        except ValueError as exc:
+            field_name, _, msg = str(exc).partition(": ")
+            raise ScenarioError(f"probe.{field_name.split(',')[0]}", msg) from None
 
     @property
     def lattice(self) -> str:
@@ -274,7 +296,18 @@ def from_dict(doc: Any) -> Scenario:
         dip = tuple(sorted(d.items()))
     analysis = doc.get("analysis", {})
     display = doc.get("display", {})
+    probe = None
+    if "probe" in doc:
+        items = []
+        for key, val in sorted(doc["probe"].items()):
+            if key == "polarization" and isinstance(val, list):
+                val = tuple(_complex(c) for c in val)
+            elif isinstance(val, list):
+                val = tuple(float(v) for v in val)
+            items.append((key, val))
+        probe = tuple(items)
     sc = Scenario(
+        probe=probe,
         transition=transition,
         transition_preset=preset,
         geometry=tuple(geo),
@@ -292,6 +325,8 @@ def from_dict(doc: Any) -> Scenario:
         color_by=display.get("color_by", "participation_ratio"),
     )
     _build_environment(sc.environment)  # parameter combinations (e.g. polarisation ⟂ axis)
+    if sc.probe is not None:
+        sc.probe_model()  # detuning range etc.
     em = sc.emitters()  # physics checks: counts, dipoles, separations
     if sc.selected_mode >= em.n:
         raise ScenarioError("analysis.selected_mode",
@@ -334,6 +369,9 @@ def to_dict(sc: Scenario) -> dict:
                                 for part in sc.environment]})
     if sc.seed is not None:
         doc["imperfections"] = {"seed": sc.seed}
+    if sc.probe is not None:
+        doc["probe"] = {k: ([_pair(c) for c in v] if k == "polarization" and isinstance(v, tuple)
+                            else list(v) if isinstance(v, tuple) else v) for k, v in sc.probe}
     doc["analysis"] = {"selected_mode": sc.selected_mode, "lens_na": sc.lens_na,
                        "lens_axis": sc.lens_axis}
     doc["display"] = {"units": sc.display_units, "color_by": sc.color_by}

@@ -115,3 +115,50 @@ def test_chiral_guide_gets_a_plain_statement_and_exact_guided_outputs(tmp_path):
     assert mid[6] == pytest.approx((0.9 / 1.1) ** 24, rel=1e-9)
     decay = np.loadtxt(tmp_path / "decay.csv", delimiter=",", skiprows=2)
     assert decay[0, 2] == pytest.approx(1.0) and np.all(np.diff(decay[:, 2]) <= 1e-12)
+
+
+def test_scan_of_a_mirror_array_and_its_fitted_resonance(tmp_path):
+    """Gaussian beam on the 16×16 demo array: reflection near 1 on resonance (mirror-like
+    response; Phys. Rev. Lett. 118, 113601 (2017) for the infinite-array limit)."""
+    res = run_cli("scan", "scenarios/mirror_square_16x16.json", "--probe", "gaussian_beam",
+                  "--waist", "2", "--detuning-min", "-3", "--detuning-max", "3",
+                  "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    assert "fitted Lorentzian" in res.stdout and "Laser safety" in res.stdout
+    data = np.genfromtxt(tmp_path / "scan.csv", delimiter=",", names=True)
+    assert data["reflection"].max() > 0.95
+    # optical theorem, exact in this model: extinction equals scattered power
+    np.testing.assert_allclose(data["extinction_gamma0"], data["scattered_gamma0"], rtol=1e-9,
+                               atol=1e-12)
+
+
+def test_decay_of_one_emitter_is_exponential(tmp_path):
+    """A single emitter decays as e^{−Γ0 t} (Weisskopf–Wigner; textbook)."""
+    doc = json.loads((ROOT / "scenarios" / "hand_placed_cluster.json").read_text())
+    doc["geometry"] = {"lattice": "explicit", "positions": [[0.0, 0.0, 0.0]]}
+    doc["dipole"] = {"preset": "x"}
+    doc["analysis"]["selected_mode"] = 0
+    path = tmp_path / "one.json"
+    path.write_text(json.dumps(doc))
+    res = run_cli("decay", str(path), "--t-max", "3", "--points", "31", "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    data = np.loadtxt(tmp_path / "decay.csv", delimiter=",", skiprows=2)
+    np.testing.assert_allclose(data[:, 2], np.exp(-data[:, 0]), atol=1e-10)
+    np.testing.assert_allclose(data[:, 3], np.exp(-data[:, 0]), atol=1e-10)  # emitted power
+
+
+@pytest.mark.parametrize("args, words", [
+    pytest.param(["scan", "scenarios/nonagon_ring.json", "--points", "1"],
+                 "--points: 1 is out of range", id="scan-points"),
+    pytest.param(["scan", "scenarios/nonagon_ring.json", "--probe", "guided"],
+                 "needs a waveguide", id="guided-without-guide"),
+    pytest.param(["decay", "scenarios/chiral_waveguide_defective.json", "--initial", "mode"],
+                 "defective", id="mode-of-defective"),
+    pytest.param(["decay", "scenarios/nonagon_ring.json", "--emitter", "9"],
+                 "--emitter: 9 is out of range", id="emitter-index"),
+    pytest.param(["decay", "scenarios/nonagon_ring.json", "--t-max", "-1"],
+                 "--t-max", id="t-max"),
+])
+def test_scan_and_decay_refuse_bad_input(args, words):
+    res = run_cli(*args)
+    assert res.returncode == 2 and words in res.stderr and "Traceback" not in res.stderr

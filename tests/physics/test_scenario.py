@@ -174,12 +174,12 @@ V1_FILE = """{
 
 
 def test_version_1_files_are_migrated():
-    """A file of the first format opens unchanged in meaning and is written as version 2."""
+    """A file of the first format opens unchanged in meaning and is written in the current one."""
     sc = scn.loads(V1_FILE)
     assert sc.environment == ((("kind", "free_space"),),)
     assert sc.selected_mode == 3 and sc.lens_axis == "-z"
     doc = json.loads(scn.dumps(sc))
-    assert doc["version"] == scn.VERSION == 2
+    assert doc["version"] == scn.VERSION
     assert doc["environment"] == [{"kind": "free_space"}]
 
 
@@ -196,3 +196,35 @@ def test_every_environment_round_trips():
     assert json.loads(scn.dumps(sc))["environment"] == doc["environment"]
     env = sc.environment_model()
     assert "waveguide" in env.describe() and "cavity" in env.describe()
+
+
+@pytest.mark.parametrize("probe", [
+    pytest.param({"kind": "plane_wave", "direction": [0.0, 0.3, 1.0], "polarization": "y",
+                  "detuning_min": -4.0, "detuning_max": 6.0, "points": 101}, id="plane"),
+    pytest.param({"kind": "gaussian_beam", "waist": 1.7, "focus": [0.0, 0.0, 0.5],
+                  "polarization": [[1.0, 0.0], [0.0, 1.0], [0.0, 0.0]]}, id="beam"),
+    pytest.param({"kind": "guided", "from_end": "+"}, id="guided"),
+])
+def test_probe_definitions_round_trip(probe):
+    doc = copy.deepcopy(BASE)
+    doc["probe"] = probe
+    sc = scn.from_dict(doc)
+    assert json.loads(scn.dumps(sc))["probe"] == probe
+    assert sc.probe_model().kind == probe["kind"]
+
+
+@pytest.mark.parametrize("probe, path, words", [
+    pytest.param({"kind": "laser"}, "probe.kind", "allowed: plane_wave", id="kind"),
+    pytest.param({"kind": "plane_wave", "detuning_min": 3.0, "detuning_max": 1.0},
+                 "probe.detuning_min", "not a range", id="range"),
+    pytest.param({"kind": "gaussian_beam", "waist": 0.01}, "probe.waist", "allowed 0.1",
+                 id="waist"),
+    pytest.param({"kind": "plane_wave", "points": 2}, "probe.points", "allowed 3 to 20001",
+                 id="points"),
+])
+def test_bad_probes_are_refused_with_the_field_named(probe, path, words):
+    doc = copy.deepcopy(BASE)
+    doc["probe"] = probe
+    with pytest.raises(scn.ScenarioError) as info:
+        scn.from_dict(doc)
+    assert info.value.path == path and words in str(info.value)

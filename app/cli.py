@@ -14,7 +14,7 @@ from typing import Sequence
 import numpy as np
 
 from physics import scenario as scn
-from physics.driving import fit_resonance, probe_scan
+from physics.driving import fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
 from physics.exports import decay_csv, far_field_csv, guided_csv, scan_csv, spectrum_csv
 from physics.hamiltonian import coupling_matrix
@@ -304,12 +304,7 @@ def cmd_scan(args) -> int:
         raise UsageError(f"{flag}: {str(exc).split(': ', 1)[-1]}" if flag else str(exc)) from None
     out = _out_dir(args, "-scan")
     (out / "scan.csv").write_text(scan_csv(scan, tr), encoding="utf-8")
-    if probe.kind == "guided":
-        signal, what = 1.0 - np.abs(scan["t"]) ** 2, "loss from the guided probe 1 − |t|²"
-    elif probe.kind == "gaussian_beam":
-        signal, what = np.abs(scan["r"]) ** 2, "reflection |r|² into the beam's mode"
-    else:
-        signal, what = scan["extinction"], "extinguished power [Γ0 per unit field²]"
+    signal, what = scan_signal(scan, probe.kind)
     fit = fit_resonance(scan["detunings"], signal)
     lines = [
         f"Choir scan — {sc.name or Path(args.scenario).name}",

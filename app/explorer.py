@@ -23,7 +23,7 @@ from physics.lattices import ring_radius
 from physics.waveguide import guided_figures
 
 from .state import NEAR_FIELD_WARN, ExplorerState
-from .views import ArrayView, FarFieldView, GuidedView, SpectrumView, mode_card_html
+from .views import ArrayView, FarFieldView, ProbeView, SpectrumView, mode_card_html
 
 __all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
 
@@ -98,6 +98,12 @@ _LABELS = {
     "cav_detuning": "Detuning ω_c − ω0 [Γ0]", "cav_axis": "Cavity axis",
     "cav_polarization": "Cavity polarisation", "cav_waist": "Waist [λ0] (empty: plane mode)",
     "cav_standing_wave": "Standing wave along the axis",
+    "probe_kind": "Probe", "probe_theta_deg": "Probe direction θ from +z [deg]",
+    "probe_phi_deg": "Probe direction φ from +x [deg]", "probe_polarization": "Probe polarisation",
+    "probe_waist": "Beam waist [λ0]", "probe_from_end": "Guided probe enters at",
+    "probe_detuning_min": "Scan from Δ [Γ0]", "probe_detuning_max": "Scan to Δ [Γ0]",
+    "decay_initial": "Decay starts from", "decay_t_max": "Decay curve length [1/Γ0]",
+    "map_plane": "Field-map plane",
 }
 
 
@@ -143,7 +149,8 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
                for name in ("n", "nx", "ny", "nz", "spacing", "spacing_y", "radius",
                             "theta_deg", "phi_deg", "lens_na", "free_space_scale", "wg_forward",
                             "wg_backward", "wg_loss", "wg_k", "cav_g", "cav_kappa",
-                            "cav_detuning")}
+                            "cav_detuning", "probe_theta_deg", "probe_phi_deg", "probe_waist",
+                            "probe_detuning_min", "probe_detuning_max", "decay_t_max")}
     lattice = _select(state, "lattice")
     disk_lattice = _select(state, "disk_lattice")
     chain_axis = _select(state, "chain_axis", pn.widgets.RadioButtonGroup)
@@ -202,6 +209,24 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
                                            label=_LABELS["cav_standing_wave"]),
             sizing_mode="stretch_width"),
     }
+    probe_groups = {
+        "plane_wave": pn.Column(sliders["probe_theta_deg"], sliders["probe_phi_deg"],
+                                sizing_mode="stretch_width"),
+        "gaussian_beam": pn.Column(sliders["probe_waist"],
+                                   pn.pane.HTML("<span style='font-size:11px;color:#555'>Beam "
+                                                "along +z, focused at the array centre; "
+                                                "paraxial, so keep the waist ≳ 1 λ0.</span>"),
+                                   sizing_mode="stretch_width"),
+        "guided": pn.Column(_select(state, "probe_from_end", pn.widgets.RadioButtonGroup),
+                            sizing_mode="stretch_width"),
+    }
+
+    def show_probe(*_):
+        for key, group in probe_groups.items():
+            group.visible = state.probe_kind == key
+
+    state.param.watch(show_probe, "probe_kind")
+    show_probe()
     env_info = pn.pane.HTML(styles={"font-size": "12px", "color": "#444"},
                             sizing_mode="stretch_width")
 
@@ -307,6 +332,17 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
                                                "</span>"), projection,
              pn.pane.HTML("<span style='font-size:12px'>Far-field colour scale</span>"),
              ff_scale),
+        card("Probe and decay", _select(state, "probe_kind"),
+             sliders["probe_detuning_min"], sliders["probe_detuning_max"],
+             probe_groups["plane_wave"], probe_groups["gaussian_beam"], probe_groups["guided"],
+             pn.pane.HTML("<span style='font-size:12px'>Probe polarisation (free-space probes)"
+                          "</span>"),
+             _select(state, "probe_polarization", pn.widgets.RadioButtonGroup),
+             _select(state, "map_plane", pn.widgets.RadioButtonGroup),
+             _select(state, "decay_initial"), sliders["decay_t_max"],
+             pn.pane.HTML("<span style='font-size:11px;color:#555'>Linear response only: the "
+                          "probe is taken far below saturation. Laser safety follows local rules "
+                          "and licensed practice, which Choir does not assess.</span>")),
         card("Share", download, pn.pane.HTML("<span style='font-size:12px'>Open a scenario "
                                              "file (.json):</span>"), upload, spectrum,
              pn.pane.HTML("<span style='font-size:11px;color:#555'>Each plot saves as PNG "
@@ -360,14 +396,20 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         if scenario is not None:
             state.apply_scenario(scenario, solve=False)
     spectrum, array, far = SpectrumView(state), ArrayView(state), FarFieldView(state)
-    guided = GuidedView(state)
-    guided_row = pn.Column(
-        pn.pane.HTML("<b>Guided probe and decay</b> <span style='font-size:11px;color:#555'>"
-                     "(exact without eigenvectors: a weak guided probe in linear response, and "
-                     "e<sup>−iHt</sup> acting on one excited emitter)</span>"),
-        pn.Row(*guided.figures, sizing_mode="stretch_width"), sizing_mode="stretch_width",
-        visible=guided.visible)
-    state.param.watch(lambda *_: setattr(guided_row, "visible", guided.visible), "result")
+    probe = ProbeView(state)
+    probe_summary = pn.pane.HTML("", styles={"font-size": "12px", "color": "#333"},
+                                 sizing_mode="stretch_width")
+    state.param.watch(lambda *_: setattr(probe_summary, "object", html.escape(probe.summary)),
+                      "analysis")
+    probe_row = pn.Column(
+        pn.pane.HTML("<b>Probe and decay</b> <span style='font-size:11px;color:#555'>(a weak "
+                     "probe in linear response, far below saturation; the field map is the "
+                     "free-space field at the spectrum's peak; the decay is e<sup>−iHt</sup> "
+                     "acting on the chosen initial state — none of it needs eigenvectors)"
+                     "</span>"),
+        probe_summary, pn.Row(*probe.figures, sizing_mode="stretch_width"),
+        sizing_mode="stretch_width")
+
     sidebar, widgets = _controls(state)
     card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
     state.param.watch(lambda *_: setattr(card, "object", mode_card_html(state)),
@@ -429,11 +471,11 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.Row(pn.Column(far.figure, ff_note, sizing_mode="stretch_width"),
                pn.Column(card, sizing_mode="stretch_width", max_width=420),
                sizing_mode="stretch_width"),
-        guided_row, model, sizing_mode="stretch_width")
+        probe_row, model, sizing_mode="stretch_width")
     page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
                      sizing_mode="stretch_both")
     page.explorer_state = state  # tests and notebooks reach the session state here
-    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "guided": guided,
+    page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "probe": probe,
                            "widgets": widgets,
                            "spinner": spinner, "error": error, "caution": caution}
 

@@ -21,6 +21,9 @@ from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters, nearest_neighbour_distance
 from physics.modes import Modes
 from physics.solution import solve_scenario
+from physics.driving import Probe, field_intensity_map, fit_resonance, probe_scan, scan_signal
+from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
+from physics.hamiltonian import coupling_matrix
 from physics.units import TRANSITIONS, Transition
 
 __all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
@@ -38,8 +41,14 @@ DEFECTIVE_NOTE = (
     "The coupling matrix is defective (a chiral waveguide makes it triangular, with all "
     "eigenvalues equal): the spectrum still shows the eigenvalues, but eigenvectors carry no "
     "meaning, so mode profiles, far fields, lens and channel figures are not shown. What is "
-    "meaningful is shown under 'Guided probe and decay': the transmission of a guided probe "
-    "and the decay after exciting the first emitter, both computed without eigenvectors.")
+    "meaningful is shown under 'Probe and decay': the response to a weak probe (e.g. the "
+    "transmission of a guided probe) and the decay after exciting the first emitter, both "
+    "computed without eigenvectors.")
+
+#: Detunings of the explorer's probe scan, pixels of its field map, points of its decay curve.
+ANALYSIS_POINTS = 201
+MAP_PIXELS = 61
+DECAY_POINTS = 151
 
 #: Most undo steps kept.
 UNDO_DEPTH = 50
@@ -85,6 +94,23 @@ class ModeResult:
     collected_down: float  # … along −z
     na: float
     channels: dict  # power into each channel [Γ0]
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Probe scan, field map at the spectrum's peak and a decay curve (see physics.driving)."""
+
+    generation: int
+    probe: Any  # physics.driving.Probe
+    scan: dict | None  # physics.driving.probe_scan, None if the probe does not apply
+    signal: np.ndarray | None
+    signal_name: str
+    fit: dict | None
+    map: tuple | None  # (u, v, |E|² / |E0|²) in λ0, or None
+    map_detuning: float
+    decay: dict  # physics.dynamics.decay_observables
+    decay_label: str
+    note: str
 
 
 class SyncRunner:
@@ -195,9 +221,36 @@ class ExplorerState(param.Parameterized):
                                 doc="Plane of the array view (no unit)")
     scenario_name = param.String("", doc="Scenario name (text, no unit)")
     description = param.String("", doc="Scenario description (text, no unit)")
+    # --- probe, field map and decay (linear response, single excitation) ---
+    probe_kind = param.Selector(objects={"plane wave": "plane_wave",
+                                         "Gaussian beam (along +z)": "gaussian_beam",
+                                         "guided (waveguide)": "guided"},
+                                default="plane_wave", doc="Weak probe for the scan (no unit)")
+    probe_theta_deg = param.Number(0.0, bounds=(0.0, 180.0), step=1.0,
+                                   doc="Plane-wave direction: polar angle from +z [deg]")
+    probe_phi_deg = param.Number(0.0, bounds=(-180.0, 180.0), step=1.0,
+                                 doc="Plane-wave direction: azimuth from +x [deg]")
+    probe_polarization = param.Selector(objects=["x", "y", "sigma+", "sigma-"], default="x",
+                                        doc="Probe polarisation (no unit), made transverse")
+    probe_waist = param.Number(2.0, bounds=(0.1, 1e4), softbounds=(0.5, 10.0), step=0.1,
+                               doc="Gaussian beam waist at the array centre [λ0]")
+    probe_from_end = param.Selector(objects={"−axis end": "-", "+axis end": "+"}, default="-",
+                                    doc="Guided probe enters at this end (no unit)")
+    probe_detuning_min = param.Number(-5.0, bounds=(-1e6, 1e6), softbounds=(-50.0, 0.0),
+                                      step=0.1, doc="Scan start, probe detuning [Γ0]")
+    probe_detuning_max = param.Number(5.0, bounds=(-1e6, 1e6), softbounds=(0.0, 50.0),
+                                      step=0.1, doc="Scan end, probe detuning [Γ0]")
+    decay_initial = param.Selector(objects={"selected mode": "mode", "first emitter": "emitter",
+                                            "state written by a short pulse": "pulse"},
+                                   default="mode", doc="Initial state of the decay curve (no unit)")
+    decay_t_max = param.Number(10.0, bounds=(0.01, 1e7), softbounds=(1.0, 200.0), step=1.0,
+                               doc="Length of the decay curve [1/Γ0]")
+    map_plane = param.Selector(objects=["xz", "yz", "xy"], default="xz",
+                               doc="Plane of the field map through the array centre (no unit)")
     # --- outputs ------------------------------------------------------------
     result = param.Parameter(None, doc="Latest solved arrangement, a Result (no unit)")
     mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")
+    analysis = param.Parameter(None, doc="Probe scan, field map and decay, an Analysis (no unit)")
     message = param.String("", doc="Last refusal or error, shown to the user (text, no unit)")
     busy = param.Boolean(False, doc="True while a computation runs (no unit)")
     undo_depth = param.Integer(0, bounds=(0, UNDO_DEPTH), doc="Edits that can be undone (count)")
@@ -207,6 +260,7 @@ class ExplorerState(param.Parameterized):
         self.runner = runner or SyncRunner()
         self._generation = 0
         self._mode_generation = 0
+        self._analysis_generation = 0
         self._undo: list[scn.Scenario] = []
         self._applying = False
         self._loaded: scn.Scenario | None = None
@@ -279,7 +333,22 @@ class ExplorerState(param.Parameterized):
                    display={"units": self.units, "color_by": self.color_by})
         if self._seed is not None:
             doc["imperfections"] = {"seed": self._seed}
+        doc["probe"] = self._probe_block()
         return doc
+
+    def _probe_block(self) -> dict:
+        block: dict[str, Any] = {"kind": self.probe_kind,
+                                 "detuning_min": self.probe_detuning_min,
+                                 "detuning_max": self.probe_detuning_max,
+                                 "points": ANALYSIS_POINTS}
+        if self.probe_kind == "plane_wave":
+            block["direction"] = list(self.probe_model().direction)
+            block["polarization"] = self.probe_polarization
+        elif self.probe_kind == "gaussian_beam":
+            block.update(waist=self.probe_waist, polarization=self.probe_polarization)
+        else:
+            block["from_end"] = self.probe_from_end
+        return block
 
     def _environment_parts(self) -> list[dict]:
         if self.environment == "as loaded from file":
@@ -331,6 +400,27 @@ class ExplorerState(param.Parameterized):
                            cav_axis=p.get("axis", "z"), cav_polarization=p.get("polarization", "x"),
                            cav_waist=p.get("waist"), cav_standing_wave=p.get("standing_wave", True))
 
+    def _apply_probe(self, sc: scn.Scenario, upd: dict) -> None:
+        if sc.probe is None:
+            kinds = [dict(p)["kind"] for p in sc.environment]
+            upd["probe_kind"] = "guided" if "waveguide" in kinds else "plane_wave"
+            return
+        p = dict(sc.probe)
+        upd["probe_kind"] = p["kind"]
+        for key, name in (("detuning_min", "probe_detuning_min"),
+                          ("detuning_max", "probe_detuning_max"), ("waist", "probe_waist"),
+                          ("from_end", "probe_from_end")):
+            if key in p:
+                upd[name] = p[key]
+        if isinstance(p.get("polarization"), str) and p["polarization"] in ("x", "y", "sigma+",
+                                                                             "sigma-"):
+            upd["probe_polarization"] = p["polarization"]
+        if "direction" in p:
+            d = np.asarray(p["direction"], float)
+            d = d / np.linalg.norm(d)
+            upd["probe_theta_deg"] = float(np.degrees(np.arccos(np.clip(d[2], -1.0, 1.0))))
+            upd["probe_phi_deg"] = float(np.degrees(np.arctan2(d[1], d[0])))
+
     def scenario_for_export(self) -> scn.Scenario:
         """The scenario including the selected mode (what a colleague should get)."""
         sc = self.to_scenario()
@@ -365,6 +455,7 @@ class ExplorerState(param.Parameterized):
         if upd["lattice"] == "explicit" and upd["positions"] is None:
             upd["positions"] = np.array(sc.emitters().positions)
         self._apply_environment(sc.environment, upd)
+        self._apply_probe(sc, upd)
         tr = sc.transition
         if sc.transition_preset is not None:
             upd["transition"] = sc.transition_preset
@@ -435,6 +526,7 @@ class ExplorerState(param.Parameterized):
             self.selected_mode = mode  # its watcher computes the mode figures
         else:
             self._solve_mode()
+        self._analyse()
 
     @param.depends("selected_mode", "lens_na", watch=True)
     def _mode_inputs_changed(self) -> None:
@@ -466,6 +558,96 @@ class ExplorerState(param.Parameterized):
             self.message = f"Mode figures not computed — {mres}"
         elif mres.generation == self._mode_generation:
             self.mode_result = mres
+
+    # ------------------------------------------------------------ probe analysis
+    _ANALYSIS_PARAMS = ["probe_kind", "probe_theta_deg", "probe_phi_deg", "probe_polarization",
+                        "probe_waist", "probe_from_end", "probe_detuning_min",
+                        "probe_detuning_max", "decay_initial", "decay_t_max", "map_plane"]
+
+    def probe_model(self) -> Probe:
+        """The probe described by the inputs (raises ValueError with the field named)."""
+        th, ph = np.radians(self.probe_theta_deg), np.radians(self.probe_phi_deg)
+        direction = (float(np.sin(th) * np.cos(ph)), float(np.sin(th) * np.sin(ph)),
+                     float(np.cos(th)))
+        return Probe(self.probe_kind, direction=direction, polarization=self.probe_polarization,
+                     waist=self.probe_waist, from_end=self.probe_from_end,
+                     detuning_min=self.probe_detuning_min, detuning_max=self.probe_detuning_max,
+                     points=ANALYSIS_POINTS)
+
+    @param.depends(*_ANALYSIS_PARAMS, watch=True)
+    def _analysis_inputs_changed(self) -> None:
+        if not self._applying:
+            self._analyse()
+
+    @param.depends("selected_mode", watch=True)
+    def _selected_mode_for_decay(self) -> None:
+        if not self._applying and self.decay_initial == "mode":
+            self._analyse()
+
+    def _analyse(self) -> None:
+        res = self.result
+        if res is None:
+            return
+        try:
+            probe = self.probe_model()
+        except ValueError as exc:
+            self.message = f"Probe not computed — {exc}"
+            return
+        self._analysis_generation += 1
+        gen, mode = self._analysis_generation, min(self.selected_mode, res.modes.n - 1)
+        initial, t_max, plane = self.decay_initial, self.decay_t_max, self.map_plane
+        self.runner.submit(lambda: self._analysis_job(gen, res, probe, initial, mode, t_max,
+                                                      plane), self._accept_analysis)
+
+    @staticmethod
+    def _analysis_job(gen, res, probe, initial, mode, t_max, plane) -> Analysis | Exception:
+        em, env = res.emitters, res.environment
+        note = ""
+        try:
+            H = coupling_matrix(em, env)
+            scan = signal = fit = fmap = None
+            name, where = "", 0.0
+            try:
+                scan = probe_scan(em, env, probe)
+            except ValueError as exc:
+                note = str(exc).split(": ", 1)[-1]
+            if scan is not None:
+                signal, name = scan_signal(scan, probe.kind)
+                where = float(scan["detunings"][int(np.argmax(signal))])
+                fit = fit_resonance(scan["detunings"], signal)
+                if probe.kind != "guided":
+                    lo, hi = em.positions.min(axis=0), em.positions.max(axis=0)
+                    half = max(2.0, 0.5 * float(np.max(hi - lo)) + 1.0)
+                    c_peak = scan["amplitudes"][int(np.argmax(signal))]
+                    u, v, inten = field_intensity_map(em, probe, c_peak, plane, half, MAP_PIXELS)
+                    e0 = np.sum(np.abs(probe.incident_field(em.positions.mean(axis=0)[None]))**2)
+                    fmap = (u, v, inten / e0)
+            if initial == "mode" and res.defective:
+                initial = "emitter"
+                note = (note + " " if note else "") + ("Decay from the first emitter: modes of a "
+                                                        "defective matrix carry no meaning.")
+            if initial == "mode":
+                c0, label = res.modes.vectors[:, mode], f"mode {mode} excited"
+            elif initial == "pulse" and probe.kind == "plane_wave":
+                c0, label = pulse_state(em, probe.direction, probe.polarization_vector()), \
+                    "state written by a short plane-wave pulse"
+            else:
+                first = 0  # emitter 0, or the one furthest upstream on a waveguide
+                guides = [p for p in getattr(env, "parts", (env,)) if hasattr(p, "coordinates")]
+                if guides:
+                    first = int(np.argmin(guides[0].coordinates(em)))
+                c0, label = single_emitter_state(em.n, first), f"emitter {first} excited"
+            times, amps = evolve(H, c0, t_max, DECAY_POINTS)
+            decay = decay_observables(H, times, amps, channels=(em, env))
+            return Analysis(gen, probe, scan, signal, name, fit, fmap, where, decay, label, note)
+        except (ValueError, MemoryError, np.linalg.LinAlgError, RuntimeError) as exc:
+            return exc
+
+    def _accept_analysis(self, an) -> None:
+        if isinstance(an, Exception):
+            self.message = f"Probe and decay not computed — {an}"
+        elif an.generation == self._analysis_generation:
+            self.analysis = an
 
     # ------------------------------------------------------------ derived
     def cautions(self) -> list[str]:

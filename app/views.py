@@ -21,7 +21,7 @@ from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
 from .state import DEFECTIVE_NOTE, ExplorerState
 
-__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "GuidedView", "mode_card_html",
+__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "mode_card_html",
            "PHASE_PALETTE",
            "FIGURE_LABELS"]
 
@@ -378,55 +378,108 @@ class FarFieldView:
                                 f"{100 * frac:.3g} % of mode {mres.mode}'s emission")
 
 
-class GuidedView:
-    """For arrays on a waveguide: guided probe transmission/reflection and a decay curve.
+class ProbeView:
+    """Response to a weak probe, the field map at the spectrum's peak, and a decay curve.
 
-    Both are computed without eigenvectors (Schur solves and e^{−iHt} acting on a
-    vector), so they stay meaningful for a perfectly chiral guide.
+    All three come from linear solves and e^{−iHt} acting on a vector (no
+    eigenvectors), so they stay meaningful for defective matrices.
     """
 
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
-        self.spectrum = ColumnDataSource(dict(x=[], t2=[], r2=[]), name="choir-guided-spectrum")
-        self.decay = ColumnDataSource(dict(t=[], p=[]), name="choir-guided-decay")
-        s = figure(height=250, sizing_mode="stretch_width", tools="pan,wheel_zoom,reset,save",
-                   toolbar_location="above", y_range=Range1d(-0.02, 1.05),
-                   title="Guided probe from the −axis end", name="choir-guided-probe")
-        s.line("x", "t2", source=self.spectrum, line_width=2, color="#00897b",
-               legend_label="transmission |t|²")
-        s.line("x", "r2", source=self.spectrum, line_width=2, color="#ad1457",
-               line_dash="dashed", legend_label="reflection |r|²")
-        s.legend.location = "bottom_left"
+        self.spec = ColumnDataSource(dict(x=[], y=[], t2=[], r2=[]), name="choir-probe-spectrum")
+        self.marker = Span(location=0.0, dimension="height", line_color=_ACCENT,
+                           line_dash="dotted", line_width=2)
+        s = figure(height=260, sizing_mode="stretch_width", tools="pan,wheel_zoom,reset,save",
+                   toolbar_location="above", title="Probe spectrum", name="choir-probe-plot")
+        s.line("x", "y", source=self.spec, line_width=2.5, color="#4527a0")
+        self.t_line = s.line("x", "t2", source=self.spec, line_width=1.5, color="#00897b",
+                             line_dash="dashed", legend_label="|t|²")
+        self.r_line = s.line("x", "r2", source=self.spec, line_width=1.5, color="#ad1457",
+                             line_dash="dotdash", legend_label="|r|²")
+        s.legend.location = "top_right"
         s.legend.label_text_font_size = "10px"
-        s.yaxis.axis_label = "power fraction"
-        d = figure(height=250, sizing_mode="stretch_width", y_axis_type="log",
+        s.add_layout(self.marker)
+        self.image = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]),
+                                      name="choir-field-map")
+        self.dots = ColumnDataSource(dict(x=[], y=[]))
+        m = figure(height=260, sizing_mode="stretch_width", match_aspect=True,
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
-                   title="Decay after exciting the first emitter upstream",
-                   name="choir-guided-decay-plot")
-        d.line("t", "p", source=self.decay, line_width=2, color="#4527a0")
-        d.yaxis.axis_label = "excited population Σ|c_j|²"
-        self.figures = (s, d)
-        state.param.watch(self.update, ["result", "units", "transition", "wavelength_nm",
+                   title="Field intensity at the spectrum's peak", name="choir-map-plot")
+        self.map_mapper = LinearColorMapper(palette=Inferno256, low=0.0, high=1.0,
+                                            nan_color="rgba(0,0,0,0)")
+        m.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.image,
+                color_mapper=self.map_mapper)
+        m.scatter("x", "y", source=self.dots, size=4, color="#80deea")
+        m.add_layout(ColorBar(color_mapper=self.map_mapper, width=10,
+                              title="|E|² / |E_in(centre)|²", title_text_font_size="10px"),
+                     "right")
+        self.decay = ColumnDataSource(dict(t=[], p=[], w=[]), name="choir-decay")
+        d = figure(height=260, sizing_mode="stretch_width", y_axis_type="log",
+                   tools="pan,wheel_zoom,reset,save", toolbar_location="above",
+                   title="Decay", name="choir-decay-plot")
+        d.line("t", "p", source=self.decay, line_width=2.5, color="#4527a0",
+               legend_label="excited population")
+        d.line("t", "w", source=self.decay, line_width=1.5, color="#ef6c00", line_dash="dashed",
+               legend_label="emitted power [Γ0]")
+        d.legend.location = "bottom_left"
+        d.legend.label_text_font_size = "10px"
+        self.figures = (s, m, d)
+        self.summary = ""
+        state.param.watch(self.update, ["analysis", "units", "transition", "wavelength_nm",
                                         "linewidth_mhz"])
         self.update()
 
-    @property
-    def visible(self) -> bool:
-        res = self.state.result
-        return res is not None and res.guided is not None
-
     def update(self, *_) -> None:
-        res, st = self.state.result, self.state
-        if res is None or res.guided is None:
+        st, an = self.state, self.state.analysis
+        if an is None:
             return
-        g = res.guided
-        self.spectrum.data = dict(x=st.to_frequency(g["detunings"]), t2=np.abs(g["t"]) ** 2,
-                                  r2=np.abs(g["r"]) ** 2)
-        self.decay.data = dict(t=st.to_time(g["times"]),
-                               p=np.maximum(g["population"], 1e-300))
+        s, m, d = self.figures
         fu = "Δ/2π [MHz]" if st.units == "lab" else "Δ [Γ0]"
-        self.figures[0].xaxis.axis_label = f"probe detuning {fu}"
-        self.figures[1].xaxis.axis_label = f"time [{st.time_label()}]"
+        if an.scan is not None:
+            x = st.to_frequency(an.scan["detunings"])
+            has_tr = "t" in an.scan
+            t2 = np.abs(an.scan["t"]) ** 2 if has_tr else np.full(x.shape, np.nan)
+            r2 = np.abs(an.scan["r"]) ** 2 if has_tr else np.full(x.shape, np.nan)
+            self.spec.data = dict(x=x, y=an.signal, t2=t2, r2=r2)
+            self.t_line.visible = self.r_line.visible = has_tr
+            s.legend.visible = has_tr
+            s.yaxis.axis_label = an.signal_name
+            self.marker.location = float(st.to_frequency(an.map_detuning))
+            fit = an.fit
+            self.summary = (f"peak at {float(st.to_frequency(an.map_detuning)):.4g} "
+                            f"{st.frequency_label()}; Lorentzian fit: centre "
+                            f"{float(st.to_frequency(fit['centre'])):+.4g}, width (FWHM) "
+                            f"{float(st.to_frequency(fit['width'])):.4g} {st.frequency_label()}"
+                            + ("" if fit["residual"] < 0.05 else " (poor fit: several "
+                               "resonances)"))
+        else:
+            self.spec.data = dict(x=[], y=[], t2=[], r2=[])
+            self.summary = an.note
+        s.xaxis.axis_label = f"probe detuning {fu}"
+        s.title.text = f"Probe spectrum — {dict((v, k) for k, v in st.param.probe_kind.objects.items())[an.probe.kind]}"
+        if an.map is not None:
+            u, v, inten = an.map
+            scale = float(st.to_length(1.0))
+            du = (u[1] - u[0]) * scale
+            self.image.data = dict(image=[inten], x=[u[0] * scale - du / 2],
+                                   y=[v[0] * scale - du / 2], dw=[(u[-1] - u[0]) * scale + du],
+                                   dh=[(v[-1] - v[0]) * scale + du])
+            self.map_mapper.update(low=0.0, high=float(np.nanpercentile(inten, 99.5)) or 1.0)
+            axes = {"xy": (0, 1), "xz": (0, 2), "yz": (1, 2)}[st.map_plane]
+            pos = st.result.emitters.positions * scale if st.result is not None else np.zeros((0, 3))
+            self.dots.data = dict(x=pos[:, axes[0]], y=pos[:, axes[1]])
+            m.xaxis.axis_label = f"{'xyz'[axes[0]]} [{st.length_label()}]"
+            m.yaxis.axis_label = f"{'xyz'[axes[1]]} [{st.length_label()}]"
+        else:
+            self.image.data = dict(image=[], x=[], y=[], dw=[], dh=[])
+            self.dots.data = dict(x=[], y=[])
+        dec = an.decay
+        self.decay.data = dict(t=st.to_time(dec["times"]),
+                               p=np.maximum(dec["population"], 1e-300),
+                               w=np.maximum(dec["power"], 1e-300))
+        d.title.text = f"Decay — {an.decay_label}"
+        d.xaxis.axis_label = f"time [{st.time_label()}]"
 
 
 def mode_card_html(state: ExplorerState) -> str:

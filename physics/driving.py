@@ -61,6 +61,7 @@ __all__ = [
     "Probe",
     "probe_scan",
     "field_intensity_map",
+    "scan_signal",
 ]
 
 
@@ -388,3 +389,17 @@ def field_intensity_map(em: Emitters, probe: Probe, amplitudes: np.ndarray, plan
     total = probe.incident_field(pts) + scattered_field(em, amplitudes, pts)
     return (u + centre[axes[0]], u + centre[axes[1]],
             np.sum(np.abs(total) ** 2, axis=1).reshape(U.shape))
+
+
+def scan_signal(scan: dict, kind: str) -> tuple[np.ndarray, str]:
+    """The natural one-number spectrum of a scan and its name.
+
+    Guided probe: the loss from the guided mode 1 − |t|²; Gaussian beam: the
+    reflection |r|² into the beam's own mode; plane wave: the extinction
+    cross-section [λ0²].
+    """
+    if kind == "guided":
+        return 1.0 - np.abs(scan["t"]) ** 2, "1 − |t|² (loss from the guided probe)"
+    if kind == "gaussian_beam":
+        return np.abs(scan["r"]) ** 2, "|r|² (reflection into the beam's mode)"
+    return scan["cross_section"], "extinction cross-section [λ0²]"

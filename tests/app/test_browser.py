@@ -306,3 +306,14 @@ def test_each_environment_opens_from_a_file(tab, name, words):
     images = tab.js("return doc.get_model_by_name('choir-farfield-images').data.image.length")
     assert images == (0 if "defective" in name else 2)  # no far field from meaningless vectors
     tab.page.screenshot(path=str(ARTIFACTS / f"explorer-{name}.png"), full_page=True)
+
+
+def test_probe_panel_shows_a_spectrum_a_map_and_a_decay(tab):
+    n = tab.wait_for("const s = doc.get_model_by_name('choir-probe-spectrum');"
+                     "return s && s.data.x.length")
+    assert n == 201
+    assert tab.wait_for("const m = doc.get_model_by_name('choir-field-map');"
+                        "return m && m.data.image.length === 1")
+    assert tab.wait_for("const d = doc.get_model_by_name('choir-decay');"
+                        "return d && d.data.t.length > 100")
+    assert "Lorentzian fit" in tab.text() and "Laser safety" in tab.text()

@@ -177,3 +177,36 @@ def test_sliders_follow_the_drag_for_small_arrays_and_the_release_for_large():
     with param.edit_constant(slider):  # what the browser sends on release
         slider.value_throttled = 0.34
     assert st.spacing == pytest.approx(0.34) and st.result.emitters.n == 625
+
+
+def test_probe_panel_follows_its_controls():
+    page = build_explorer(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st, probe = page.explorer_state, page.explorer_views["probe"]
+    an = st.analysis
+    assert an.probe.kind == "gaussian_beam" and len(probe.spec.data["x"]) == 201
+    # a 16×16 array at 0.75 λ0 reflects most of a 2 λ0 beam on resonance (mirror-like
+    # response; Phys. Rev. Lett. 118, 113601 (2017) for the infinite-array limit)
+    assert np.nanmax(probe.spec.data["r2"]) > 0.95
+    assert probe.image.data["image"][0].shape == (61, 61)
+    st.probe_kind = "plane_wave"
+    assert st.analysis.probe.kind == "plane_wave" and "cross-section" in st.analysis.signal_name
+    st.probe_kind = "guided"  # no waveguide here: the page says so, nothing breaks
+    assert st.analysis.scan is None and "waveguide" in probe.summary
+    st.decay_initial = "pulse"
+    assert "emitter 0" in st.analysis.decay_label  # a pulse needs a plane-wave probe
+    st.probe_kind = "plane_wave"
+    assert "pulse" in st.analysis.decay_label
+    assert st.analysis.decay["population"][0] == pytest.approx(1.0)
+
+
+def test_probe_settings_travel_in_the_scenario_file():
+    page = build_explorer(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
+    st = page.explorer_state
+    st.param.update(probe_kind="gaussian_beam", probe_waist=1.3, probe_detuning_min=-2.0,
+                    probe_detuning_max=4.0, probe_polarization="y")
+    text = page.explorer_views["widgets"]["download"].callback().getvalue()
+    other = build_explorer(scn.loads(text)).explorer_state
+    for name in ("probe_kind", "probe_waist", "probe_detuning_min", "probe_detuning_max",
+                 "probe_polarization"):
+        assert getattr(other, name) == getattr(st, name), name
+    np.testing.assert_array_equal(other.analysis.signal, st.analysis.signal)

@@ -14,9 +14,10 @@ from typing import Sequence
 import numpy as np
 
 from physics import scenario as scn
-from physics.driving import fit_resonance, probe_scan, scan_signal
+from physics.driving import field_intensity_map, fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
-from physics.exports import decay_csv, far_field_csv, guided_csv, scan_csv, spectrum_csv
+from physics.exports import (decay_csv, far_field_csv, field_map_csv, guided_csv, scan_csv,
+                             spectrum_csv)
 from physics.hamiltonian import coupling_matrix
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
@@ -304,7 +305,19 @@ def cmd_scan(args) -> int:
         raise UsageError(f"{flag}: {str(exc).split(': ', 1)[-1]}" if flag else str(exc)) from None
     out = _out_dir(args, "-scan")
     (out / "scan.csv").write_text(scan_csv(scan, tr), encoding="utf-8")
+    written = [out / "scan.csv"]
     signal, what = scan_signal(scan, probe.kind)
+    if args.map_plane:
+        if probe.kind == "guided":
+            raise UsageError("--map-plane: a guided probe has no free-space field to map")
+        peak = int(np.argmax(signal))
+        half = max(2.0, 0.5 * float(np.ptp(em.positions, axis=0).max()) + 1.0)
+        u, v, inten = field_intensity_map(em, probe, scan["amplitudes"][peak], args.map_plane,
+                                          half, args.map_pixels)
+        (out / "field_map.csv").write_text(
+            field_map_csv(u, v, inten, args.map_plane, float(scan["detunings"][peak])),
+            encoding="utf-8")
+        written.append(out / "field_map.csv")
     fit = fit_resonance(scan["detunings"], signal)
     lines = [
         f"Choir scan — {sc.name or Path(args.scenario).name}",
@@ -322,7 +335,7 @@ def cmd_scan(args) -> int:
                      f"({scan['cross_section'].max() * tr.wavelength_nm ** 2 * 1e-6:.4g} µm²)")
     lines += [f"  {MODEL_LIMITS}", "  Linear response: valid for probe intensities far below "
               "saturation. Laser safety follows local rules and licensed practice, which Choir "
-              "does not assess.", f"  wrote {out / 'scan.csv'}"]
+              "does not assess.", "  wrote " + ", ".join(str(p) for p in written)]
     print("\n".join(lines))
     return 0
 
@@ -463,6 +476,10 @@ def build_parser() -> argparse.ArgumentParser:
     s2.add_argument("--waist", type=float, help="Gaussian beam waist [λ0]")
     s2.add_argument("--from-end", dest="from_end", choices=["-", "+"],
                     help="guided probe: enter at the −axis or +axis end")
+    s2.add_argument("--map-plane", dest="map_plane", choices=["xz", "yz", "xy"],
+                    help="also write |E|² on this plane through the array centre at the peak")
+    s2.add_argument("--map-pixels", dest="map_pixels", type=int, default=101,
+                    help="pixels across the field map (default 101)")
     s2.add_argument("--out", help="output folder (default: <scenario name>-scan)")
     s2.set_defaults(func=cmd_scan)
 

@@ -471,9 +471,12 @@ class ProbeView:
             self.dots.data = dict(x=pos[:, axes[0]], y=pos[:, axes[1]])
             m.xaxis.axis_label = f"{'xyz'[axes[0]]} [{st.length_label()}]"
             m.yaxis.axis_label = f"{'xyz'[axes[1]]} [{st.length_label()}]"
+            m.title.text = (f"|E|² at the spectrum's peak, {st.map_plane}-plane through the "
+                            f"array centre")
         else:
             self.image.data = dict(image=[], x=[], y=[], dw=[], dh=[])
             self.dots.data = dict(x=[], y=[])
+            m.title.text = "No field map: the probe travels in the waveguide"
         dec = an.decay
         self.decay.data = dict(t=st.to_time(dec["times"]),
                                p=np.maximum(dec["population"], 1e-300),

@@ -16,7 +16,7 @@ from .geometry import Emitters
 from .modes import Modes
 from .units import Transition
 
-__all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv",
+__all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv", "field_map_csv",
            "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
@@ -124,4 +124,18 @@ def decay_csv(observables: dict, transition: Transition, label: str = "") -> str
     for k, t in enumerate(observables["times"]):
         w.writerow([repr(float(t)), repr(float(transition.time_ns(t)))]
                    + [repr(float(observables[n][k])) for n in names])
+    return buf.getvalue()
+
+
+def field_map_csv(u: np.ndarray, v: np.ndarray, intensity: np.ndarray, plane: str,
+                  detuning: float) -> str:
+    """A field map (physics.driving.field_intensity_map) as long-format CSV text."""
+    buf = io.StringIO()
+    buf.write(f"# |E_in + E_sc|^2 on the {plane}-plane at probe detuning {detuning!r} Gamma0; "
+              f"coordinates in lambda0; NaN next to an emitter\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow([f"{plane[0]}_lambda0", f"{plane[1]}_lambda0", "intensity"])
+    for q, vv in enumerate(v):
+        for p, uu in enumerate(u):
+            w.writerow([repr(float(uu)), repr(float(vv)), repr(float(intensity[q, p]))])
     return buf.getvalue()

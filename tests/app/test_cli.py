@@ -122,11 +122,16 @@ def test_scan_of_a_mirror_array_and_its_fitted_resonance(tmp_path):
     response; Phys. Rev. Lett. 118, 113601 (2017) for the infinite-array limit)."""
     res = run_cli("scan", "scenarios/mirror_square_16x16.json", "--probe", "gaussian_beam",
                   "--waist", "2", "--detuning-min", "-3", "--detuning-max", "3",
-                  "--out", str(tmp_path))
+                  "--map-plane", "xz", "--map-pixels", "31", "--out", str(tmp_path))
     assert res.returncode == 0, res.stderr
     assert "fitted Lorentzian" in res.stdout and "Laser safety" in res.stdout
     data = np.genfromtxt(tmp_path / "scan.csv", delimiter=",", names=True)
     assert data["reflection"].max() > 0.95
+    fmap = np.loadtxt(tmp_path / "field_map.csv", delimiter=",", skiprows=2)
+    assert fmap.shape == (31 * 31, 3)
+    # a near-perfect mirror: far less light behind the array (z > 1) than in front of it
+    behind, front = fmap[fmap[:, 1] > 1.0, 2], fmap[fmap[:, 1] < -1.0, 2]
+    assert np.nanmean(behind) < 0.1 * np.nanmean(front)
     # optical theorem, exact in this model: extinction equals scattered power
     np.testing.assert_allclose(data["extinction_gamma0"], data["scattered_gamma0"], rtol=1e-9,
                                atol=1e-12)

@@ -41,7 +41,8 @@ def test_single_emitter_on_a_chiral_guide(loss):
 
 def test_cascaded_emitters_multiply_their_transmissions():
     """On a one-way guide every emitter sees only the field from upstream, so the chain
-    transmits t_1(Δ)^N whatever the spacing (cascaded systems; common practice, no source)."""
+    transmits t_1(Δ)^N whatever the spacing (cascaded systems; see the review of chiral
+    quantum optics, P. Lodahl et al., Nature 541, 473 (2017))."""
     wg = Waveguide(0.8, 0.0, 0.3, k_guided=7.3, axis="x")
     em = lattices.chain(7, 0.37, "x")
     t, _ = _probe(em, wg)

@@ -16,8 +16,8 @@ import numpy as np
 from physics import scenario as scn
 from physics.driving import field_intensity_map, fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
-from physics.exports import (decay_csv, far_field_csv, field_map_csv, guided_csv, scan_csv,
-                             spectrum_csv)
+from physics.exports import (decay_csv, far_field_csv, field_map_csv, guided_csv,
+                             read_amplitudes_csv, scan_csv, spectrum_csv)
 from physics.hamiltonian import coupling_matrix
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
@@ -313,7 +313,7 @@ def cmd_scan(args) -> int:
         peak = int(np.argmax(signal))
         half = max(2.0, 0.5 * float(np.ptp(em.positions, axis=0).max()) + 1.0)
         u, v, inten = field_intensity_map(em, probe, scan["amplitudes"][peak], args.map_plane,
-                                          half, args.map_pixels)
+                                          half, args.map_pixels, args.map_offset)
         (out / "field_map.csv").write_text(
             field_map_csv(u, v, inten, args.map_plane, float(scan["detunings"][peak])),
             encoding="utf-8")
@@ -358,6 +358,17 @@ def cmd_decay(args) -> int:
                 raise UsageError(f"--mode: {args.mode} is out of range; allowed 0 to {em.n - 1}")
             c0 = sol.modes.vectors[:, args.mode]
             label = f"mode {args.mode} excited"
+        elif args.initial == "vector":
+            if not args.amplitudes:
+                raise UsageError("--initial vector needs --amplitudes FILE (CSV: re, im per "
+                                 "emitter)")
+            try:
+                text = Path(args.amplitudes).read_text(encoding="utf-8")
+            except (OSError, UnicodeDecodeError) as exc:
+                raise UsageError(f"--amplitudes: cannot read {args.amplitudes}: {exc}") from None
+            c0 = read_amplitudes_csv(text, em.n)
+            c0 = c0 / np.linalg.norm(c0)
+            label = f"amplitudes from {Path(args.amplitudes).name} (normalised)"
         else:
             probe = sc.probe_model()
             c0 = pulse_state(em, probe.direction, probe.polarization_vector())
@@ -480,15 +491,20 @@ def build_parser() -> argparse.ArgumentParser:
                     help="also write |E|² on this plane through the array centre at the peak")
     s2.add_argument("--map-pixels", dest="map_pixels", type=int, default=101,
                     help="pixels across the field map (default 101)")
+    s2.add_argument("--map-offset", dest="map_offset", type=float, default=0.0,
+                    help="shift of the map plane along its normal from the array centre [λ0]")
     s2.add_argument("--out", help="output folder (default: <scenario name>-scan)")
     s2.set_defaults(func=cmd_scan)
 
     s3 = sub.add_parser("decay", help="time evolution from an initial state: population and "
                         "emitted power per channel (CSV)")
     s3.add_argument("scenario")
-    s3.add_argument("--initial", choices=["emitter", "mode", "pulse"], default="emitter",
-                    help="one excited emitter, one mode, or the state a short pulse writes "
-                         "(the scenario's probe direction and polarisation)")
+    s3.add_argument("--initial", choices=["emitter", "mode", "pulse", "vector"],
+                    default="emitter",
+                    help="one excited emitter, one mode, the state a short pulse writes (the "
+                         "scenario's probe direction and polarisation), or your own amplitudes")
+    s3.add_argument("--amplitudes", help="with --initial vector: CSV file, one row per emitter, "
+                                         "'re, im'")
     s3.add_argument("--emitter", type=int, default=0, help="with --initial emitter (index)")
     s3.add_argument("--mode", type=int, default=0, help="with --initial mode (0 = most subradiant)")
     s3.add_argument("--t-max", dest="t_max", type=float, default=10.0, help="last time [1/Γ0]")

@@ -62,6 +62,7 @@ __all__ = [
     "probe_scan",
     "field_intensity_map",
     "scan_signal",
+    "field_intensity_line",
 ]
 
 
@@ -403,3 +404,19 @@ def scan_signal(scan: dict, kind: str) -> tuple[np.ndarray, str]:
     if kind == "gaussian_beam":
         return np.abs(scan["r"]) ** 2, "|r|² (reflection into the beam's mode)"
     return scan["cross_section"], "extinction cross-section [λ0²]"
+
+
+def field_intensity_line(em: Emitters, probe: Probe, amplitudes: np.ndarray, start, end,
+                         points: int = 201) -> tuple[np.ndarray, np.ndarray]:
+    """|E_in + E_sc|² along the segment start → end [λ0].
+
+    Returns the distance from ``start`` (P,) [λ0] and the intensity (P,), NaN
+    next to an emitter.  Free-space probes only.
+    """
+    a, b = np.asarray(start, float), np.asarray(end, float)
+    if a.shape != (3,) or b.shape != (3,) or np.allclose(a, b):
+        raise ValueError("start, end: expected two different points (x, y, z) [λ0]")
+    s = np.linspace(0.0, 1.0, int(points))
+    pts = a[None, :] + s[:, None] * (b - a)[None, :]
+    total = probe.incident_field(pts) + scattered_field(em, amplitudes, pts)
+    return s * np.linalg.norm(b - a), np.sum(np.abs(total) ** 2, axis=1)

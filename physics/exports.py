@@ -17,6 +17,7 @@ from .modes import Modes
 from .units import Transition
 
 __all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv", "field_map_csv",
+           "read_amplitudes_csv",
            "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
@@ -139,3 +140,32 @@ def field_map_csv(u: np.ndarray, v: np.ndarray, intensity: np.ndarray, plane: st
         for p, uu in enumerate(u):
             w.writerow([repr(float(uu)), repr(float(vv)), repr(float(intensity[q, p]))])
     return buf.getvalue()
+
+
+def read_amplitudes_csv(text: str, n: int) -> np.ndarray:
+    """Complex amplitudes from CSV text: one row per emitter, ``re`` or ``re, im``.
+
+    Lines starting with '#' and a header row of words are skipped.  Raises
+    ValueError naming the row when something does not fit.
+    """
+    rows = []
+    for number, line in enumerate(text.splitlines(), start=1):
+        line = line.strip()
+        if not line or line.startswith("#"):
+            continue
+        cells = [c.strip() for c in line.split(",")]
+        try:
+            values = [float(c) for c in cells]
+        except ValueError:
+            if not rows and number == 1 or (not rows and all(c.isidentifier() for c in cells)):
+                continue  # a header
+            raise ValueError(f"amplitudes: row {number} is not numbers: {line[:40]!r}") from None
+        if len(values) not in (1, 2) or not np.all(np.isfinite(values)):
+            raise ValueError(f"amplitudes: row {number} needs 1 or 2 finite numbers (re, im)")
+        rows.append(complex(values[0], values[1] if len(values) == 2 else 0.0))
+    if len(rows) != n:
+        raise ValueError(f"amplitudes: {len(rows)} rows; allowed exactly {n} (one per emitter)")
+    c = np.array(rows, dtype=complex)
+    if np.linalg.norm(c) < 1e-12:
+        raise ValueError("amplitudes: all zero; give a non-zero state")
+    return c

@@ -274,3 +274,37 @@ def test_decay_agrees_with_a_lindblad_master_equation(n, env):
                         options={"atol": 1e-12, "rtol": 1e-10}).expect[0]
     _, amps = evolve(H, single_emitter_state(n, 0), 4.0, 21)
     np.testing.assert_allclose(np.sum(np.abs(amps) ** 2, axis=1), ref, atol=1e-6)
+
+
+def test_field_line_crosses_the_map_consistently():
+    """The line and the map are the same field evaluated on different point sets."""
+    from physics.driving import Probe, field_intensity_line, field_intensity_map
+
+    em = lattices.square(4, 4, 0.4, "x")
+    probe = Probe("plane_wave")
+    H = coupling_matrix(em, FreeSpace())
+    c = steady_states(H, drive_from_field(em, probe.incident_field(em.positions)), [0.3])[0]
+    u, v, inten = field_intensity_map(em, probe, c, "xz", 2.0, 21)
+    dist, line = field_intensity_line(em, probe, c, (u[0], 0.0, v[5]), (u[-1], 0.0, v[5]), 21)
+    np.testing.assert_allclose(line, inten[5], rtol=1e-12)
+    assert dist[-1] == pytest.approx(u[-1] - u[0])
+    with pytest.raises(ValueError, match="start, end"):
+        field_intensity_line(em, probe, c, (0, 0, 1), (0, 0, 1))
+
+
+@pytest.mark.parametrize("text, n, words", [
+    pytest.param("re,im\n1,0\n0,1\n", 2, None, id="header"),
+    pytest.param("# comment\n1\n2\n3\n", 3, None, id="real-only"),
+    pytest.param("1,0\n", 2, "1 rows; allowed exactly 2", id="count"),
+    pytest.param("1,0\nnan,0\n", 2, "row 2", id="nan"),
+    pytest.param("0,0\n0,0\n", 2, "all zero", id="zero"),
+    pytest.param("1,0,3\n1,1\n", 2, "row 1 needs 1 or 2", id="columns"),
+])
+def test_amplitude_files_are_read_or_refused_clearly(text, n, words):
+    from physics.exports import read_amplitudes_csv
+
+    if words is None:
+        assert read_amplitudes_csv(text, n).shape == (n,)
+    else:
+        with pytest.raises(ValueError, match=words):
+            read_amplitudes_csv(text, n)

@@ -65,6 +65,14 @@ class ServerRunner:
 
         _executor().submit(job).add_done_callback(finished)
 
+    def on_loop(self, fn: Callable[[], None]) -> None:
+        """Run ``fn`` on the session's event loop with the document lock.
+
+        Button clicks arrive in a coroutine outside the lock; changing Bokeh
+        models from there fails ("_pending_writes should be non-None").
+        """
+        self.doc.add_next_tick_callback(fn)
+
 
 # ---------------------------------------------------------------- controls
 
@@ -284,8 +292,8 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     state.param.watch(mode_from_state, ["selected_mode", "result"])
     prev_b = pn.widgets.Button(label="◀ less radiant", sizing_mode="stretch_width")
     next_b = pn.widgets.Button(label="more radiant ▶", sizing_mode="stretch_width")
-    prev_b.on_click(lambda e: _step(state, -1))
-    next_b.on_click(lambda e: _step(state, +1))
+    prev_b.on_click(lambda e: state.runner.on_loop(lambda: _step(state, -1)))
+    next_b.on_click(lambda e: state.runner.on_loop(lambda: _step(state, +1)))
     lens_axis = _select(state, "lens_axis", pn.widgets.RadioButtonGroup)
 
     download = pn.widgets.FileDownload(
@@ -314,7 +322,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
 
     upload.param.watch(load_upload, "value")
     undo = pn.widgets.Button(label="Undo last edit", sizing_mode="stretch_width", disabled=True)
-    undo.on_click(lambda e: state.undo())
+    undo.on_click(lambda e: state.runner.on_loop(state.undo))
     state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
 
     def card(title, *items):

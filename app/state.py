@@ -119,6 +119,10 @@ class SyncRunner:
     def submit(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
         done(job())
 
+    def on_loop(self, fn: Callable[[], None]) -> None:
+        """Run ``fn`` where plot models may change (here: at once)."""
+        fn()
+
 
 def _far_field_image(em: Emitters, c: np.ndarray, pixels: int) -> np.ndarray:
     """dP/dΩ on the orthographic view of both hemispheres, side by side [Γ0/sr]."""

@@ -71,6 +71,8 @@ def server():
     yield f"http://127.0.0.1:{port}/"
     proc.terminate()
     proc.wait(timeout=20)
+    log = (ARTIFACTS / f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log").read_text()
+    assert "Traceback" not in log, log[-3000:]  # the server must never fail behind the page
 
 
 @pytest.fixture(scope="module")

@@ -415,6 +415,8 @@ class ProbeView:
                               title="|E|² / |E_in(centre)|²", title_text_font_size="10px"),
                      "right")
         self.decay = ColumnDataSource(dict(t=[], p=[], w=[]), name="choir-decay")
+        self.channels = ColumnDataSource(dict(xs=[], ys=[], color=[], name=[]),
+                                         name="choir-decay-channels")
         d = figure(height=260, sizing_mode="stretch_width", y_axis_type="log",
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
                    title="Decay", name="choir-decay-plot")
@@ -422,6 +424,9 @@ class ProbeView:
                legend_label="excited population")
         d.line("t", "w", source=self.decay, line_width=1.5, color="#ef6c00", line_dash="dashed",
                legend_label="emitted power [Γ0]")
+        ch = d.multi_line("xs", "ys", source=self.channels, line_color="color", line_width=1.2,
+                          line_dash="dotted")
+        d.add_tools(HoverTool(renderers=[ch], tooltips=[("emitted into", "@name")]))
         d.legend.location = "bottom_left"
         d.legend.label_text_font_size = "10px"
         self.figures = (s, m, d)
@@ -481,6 +486,15 @@ class ProbeView:
         self.decay.data = dict(t=st.to_time(dec["times"]),
                                p=np.maximum(dec["population"], 1e-300),
                                w=np.maximum(dec["power"], 1e-300))
+        names = [k for k in dec if k not in ("times", "population", "power")]
+        if len(names) > 1:  # the split between channels, dotted (hover names them)
+            t = list(st.to_time(dec["times"]))
+            palette = ["#00897b", "#ad1457", "#1565c0", "#6d4c41", "#558b2f", "#f9a825"]
+            self.channels.data = dict(
+                xs=[t] * len(names), ys=[list(np.maximum(dec[k], 1e-300)) for k in names],
+                color=[palette[i % len(palette)] for i in range(len(names))], name=names)
+        else:
+            self.channels.data = dict(xs=[], ys=[], color=[], name=[])
         d.title.text = f"Decay — {an.decay_label}"
         d.xaxis.axis_label = f"time [{st.time_label()}]"
 

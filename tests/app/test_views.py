@@ -210,3 +210,13 @@ def test_probe_settings_travel_in_the_scenario_file():
                  "probe_polarization"):
         assert getattr(other, name) == getattr(st, name), name
     np.testing.assert_array_equal(other.analysis.signal, st.analysis.signal)
+
+
+def test_decay_plot_splits_the_emission_between_channels():
+    page = build_explorer(scn.load(ROOT / "scenarios" / "fibre_chain_partly_chiral.json"))
+    probe = page.explorer_views["probe"]
+    names = probe.channels.data["name"]
+    assert "free space" in names and any("guided" in n for n in names)
+    # the channels add up to the total emitted power at every time (exact identity)
+    total = np.sum(np.array(probe.channels.data["ys"]), axis=0)
+    np.testing.assert_allclose(total, probe.decay.data["w"], rtol=1e-9)

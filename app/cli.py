@@ -110,11 +110,7 @@ def cmd_solve(args) -> int:
     tr = sc.transition
     sol = solve_scenario(sc, guided_points=801)
     em, env, modes, defective = sol.emitters, sol.environment, sol.modes, sol.defective
-    out = Path(args.out) if args.out else Path(Path(args.scenario).stem + "-results")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise UsageError(f"--out: cannot create {out}: {exc.strerror}") from None
+    out = _out_dir(args, "-results")
 
     sel = sc.selected_mode
     rates = modes.decay_rates

@@ -18,13 +18,14 @@ import param
 
 from physics import scenario as scn
 from physics.far_field import far_field_image, lens_fraction
-from physics.geometry import Emitters, nearest_neighbour_distance
+from physics.geometry import Emitters, nearest_neighbour_distance, polar_dipole
 from physics.modes import Modes
 from physics.solution import solve_scenario
 from physics.driving import Probe, field_intensity_map, fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
 from physics.hamiltonian import coupling_matrix
 from physics.units import TRANSITIONS, Transition
+from physics.waveguide import upstream_emitter
 
 __all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
            "NEAR_FIELD_WARN", "FAR_FIELD_PIXELS"]
@@ -570,9 +571,8 @@ class ExplorerState(param.Parameterized):
 
     def probe_model(self) -> Probe:
         """The probe described by the inputs (raises ValueError with the field named)."""
-        th, ph = np.radians(self.probe_theta_deg), np.radians(self.probe_phi_deg)
-        direction = (float(np.sin(th) * np.cos(ph)), float(np.sin(th) * np.sin(ph)),
-                     float(np.cos(th)))
+        direction = tuple(float(v) for v in polar_dipole(
+            np.radians(self.probe_theta_deg), np.radians(self.probe_phi_deg)).real)
         return Probe(self.probe_kind, direction=direction, polarization=self.probe_polarization,
                      waist=self.probe_waist, from_end=self.probe_from_end,
                      detuning_min=self.probe_detuning_min, detuning_max=self.probe_detuning_max,
@@ -636,10 +636,7 @@ class ExplorerState(param.Parameterized):
                 c0, label = pulse_state(em, probe.direction, probe.polarization_vector()), \
                     "state written by a short plane-wave pulse"
             else:
-                first = 0  # emitter 0, or the one furthest upstream on a waveguide
-                guides = [p for p in getattr(env, "parts", (env,)) if hasattr(p, "coordinates")]
-                if guides:
-                    first = int(np.argmin(guides[0].coordinates(em)))
+                first = upstream_emitter(em, env)  # emitter 0 without a waveguide
                 c0, label = single_emitter_state(em.n, first), f"emitter {first} excited"
             times, amps = evolve(H, c0, t_max, DECAY_POINTS)
             decay = decay_observables(H, times, amps, channels=(em, env))

@@ -16,6 +16,7 @@ from bokeh.models import (ColorBar, ColumnDataSource, HoverTool, Label, LinearCo
 from bokeh.palettes import Cividis256, Inferno256
 from bokeh.plotting import figure
 
+from physics.environment import parts_of
 from physics.geometry import nearest_neighbour_distance
 from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
@@ -234,7 +235,7 @@ class ArrayView:
     def _draw_environment(self, pos: np.ndarray, a: int, b: int, scale: float) -> None:
         """Waveguide axis and cavity axis/waist in the view plane (projected)."""
         env = self.state.result.environment
-        parts = getattr(env, "parts", (env,))
+        parts = parts_of(env)
         lines = dict(xs=[], ys=[], color=[], dash=[], label=[])
         rings = dict(x=[], y=[], r=[], color=[], label=[])
         lo, hi = pos.min(axis=0), pos.max(axis=0)

@@ -318,10 +318,9 @@ class Probe:
 
 
 def _guide(environment):
-    from .waveguide import Waveguide
+    from .waveguide import waveguides
 
-    parts = getattr(environment, "parts", (environment,))
-    guides = [p for p in parts if isinstance(p, Waveguide)]
+    guides = waveguides(environment)
     if not guides:
         raise ValueError("probe.kind: a guided probe needs a waveguide in the environment")
     return guides[0]

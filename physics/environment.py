@@ -28,7 +28,7 @@ import numpy as np
 
 from .geometry import Emitters
 
-__all__ = ["Summable", "Combined"]
+__all__ = ["Summable", "Combined", "parts_of"]
 
 
 class Summable:
@@ -42,7 +42,7 @@ class Summable:
     def __add__(self, other):
         if not isinstance(other, Summable):
             return NotImplemented
-        return Combined(_parts(self) + _parts(other))
+        return Combined(parts_of(self) + parts_of(other))
 
     def check(self, em: Emitters) -> list[str]:
         """Model-validity notes for this arrangement (empty when all is well)."""
@@ -61,7 +61,8 @@ class Summable:
         return {self.describe(): float(np.real(np.vdot(c, gamma @ c)))}
 
 
-def _parts(env) -> tuple:
+def parts_of(env) -> tuple:
+    """The channels of an environment: its parts for a sum, else the environment alone."""
     return env.parts if isinstance(env, Combined) else (env,)
 
 

@@ -31,10 +31,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .environment import Summable
+from .environment import Summable, parts_of
 from .geometry import Emitters
 
-__all__ = ["Waveguide", "guided_figures", "guided_response"]
+__all__ = ["Waveguide", "waveguides", "upstream_emitter", "guided_figures", "guided_response"]
 
 _AXES = {"x": 0, "y": 1, "z": 2}
 _FLIPS = {"x": ("mirror x", "C2 y", "C2 z", "inversion"),
@@ -197,6 +197,17 @@ class Waveguide(Summable):
                 f"n_eff = {self.n_eff:.4g})")
 
 
+def waveguides(environment) -> list[Waveguide]:
+    """The waveguide channels of an environment (possibly none)."""
+    return [p for p in parts_of(environment) if isinstance(p, Waveguide)]
+
+
+def upstream_emitter(em: Emitters, environment) -> int:
+    """Index of the emitter furthest upstream on the first waveguide (0 without one)."""
+    guides = waveguides(environment)
+    return int(np.argmin(guides[0].coordinates(em))) if guides else 0
+
+
 def guided_figures(environment) -> dict[str, float] | None:
     """β-factor and directionality of one emitter in ``environment``, or None without a guide.
 
@@ -205,8 +216,7 @@ def guided_figures(environment) -> dict[str, float] | None:
     contribution depends on where the emitter sits and is left out (β of an
     emitter away from the cavity mode).  Directionality = (Γ_f − Γ_b)/(Γ_f + Γ_b).
     """
-    parts = getattr(environment, "parts", (environment,))
-    guides = [p for p in parts if isinstance(p, Waveguide)]
+    guides = waveguides(environment)
     if not guides:
         return None
     fwd = sum(g.gamma_forward for g in guides)
@@ -238,15 +248,14 @@ def guided_response(em: Emitters, environment, detunings: np.ndarray, t_max: flo
     from .dynamics import evolve
     from .hamiltonian import coupling_matrix
 
-    parts = getattr(environment, "parts", (environment,))
-    guides = [p for p in parts if isinstance(p, Waveguide)]
+    guides = waveguides(environment)
     if not guides:
         return None
     guide = guides[0]
     H = coupling_matrix(em, environment)
     amps = steady_states(H, guide.probe(em), detunings)
     t, r = guide.transmission(em, amps)
-    first = int(np.argmin(guide.coordinates(em)))
+    first = upstream_emitter(em, environment)
     c0 = np.zeros(em.n, dtype=complex)
     c0[first] = 1.0
     times, c = evolve(H, c0, t_max, num_times)

@@ -455,7 +455,8 @@ class ProbeView:
             fit = an.fit
             self.summary = (f"peak at {float(st.to_frequency(an.map_detuning)):.4g} "
                             f"{st.frequency_label()}; Lorentzian fit: centre "
-                            f"{float(st.to_frequency(fit['centre'])):+.4g}, width (FWHM) "
+                            f"{float(st.to_frequency(fit['centre'])):+.4g} "
+                            f"{st.frequency_label()}, width (FWHM) "
                             f"{float(st.to_frequency(fit['width'])):.4g} {st.frequency_label()}"
                             + ("" if fit["residual"] < 0.05 else " (poor fit: several "
                                "resonances)"))
@@ -477,8 +478,7 @@ class ProbeView:
             self.dots.data = dict(x=pos[:, axes[0]], y=pos[:, axes[1]])
             m.xaxis.axis_label = f"{'xyz'[axes[0]]} [{st.length_label()}]"
             m.yaxis.axis_label = f"{'xyz'[axes[1]]} [{st.length_label()}]"
-            m.title.text = (f"|E|² at the spectrum's peak, {st.map_plane}-plane through the "
-                            f"array centre")
+            m.title.text = f"|E|² at the peak, {st.map_plane}-plane"
         else:
             self.image.data = dict(image=[], x=[], y=[], dw=[], dh=[])
             self.dots.data = dict(x=[], y=[])

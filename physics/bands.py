@@ -144,7 +144,7 @@ class Chain:
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.spacing) and 0.0 < self.spacing <= MAX_PERIOD):
-            raise ValueError(f"spacing: {self.spacing} λ0 is out of range; allowed (0, {MAX_PERIOD}] λ0")
+            raise ValueError(f"spacing: {self.spacing:g} λ0 is out of range; allowed (0, {MAX_PERIOD:g}] λ0")
         if self.axis not in ("x", "y", "z"):
             raise ValueError(f"axis: {self.axis!r} is not allowed; allowed: x, y, z")
 
@@ -185,7 +185,7 @@ class PlanarLattice:
         for name in ("a1", "a2"):
             n = float(np.hypot(*getattr(self, name)))
             if not (np.isfinite(n) and 0.0 < n <= MAX_PERIOD):
-                raise ValueError(f"{name}: length {n:g} λ0 is out of range; allowed (0, {MAX_PERIOD}] λ0")
+                raise ValueError(f"{name}: length {n:g} λ0 is out of range; allowed (0, {MAX_PERIOD:g}] λ0")
         if self.area < 1e-9:
             raise ValueError("a2: parallel to a1; a planar lattice needs two independent vectors")
 
@@ -541,15 +541,21 @@ def brillouin_zone_grid(lat: PlanarLattice, n: int = 81) -> tuple[np.ndarray, np
     if not 5 <= int(n) <= 1001:
         raise ValueError(f"grid: {n} is out of range; allowed 5…1001")
     b = lat.reciprocal
-    corners = np.array([(i, j) for i in (-1, 0, 1) for j in (-1, 0, 1)], dtype=float) @ b
-    half = 0.5 * np.max(np.abs(corners), axis=0)
-    kx = np.linspace(-half[0], half[0], n)
-    ky = np.linspace(-half[1], half[1], n)
-    KX, KY = np.meshgrid(kx, ky)
-    k = np.stack([KX, KY], axis=-1)
-    others = corners[np.any(corners != 0, axis=1)]
-    dist0 = np.sum(k * k, axis=-1)
-    inside = np.all(np.sum((k[..., None, :] - others) ** 2, axis=-1) >= dist0[..., None] - 1e-9, axis=-1)
+    near = np.array([(i, j) for i in (-1, 0, 1) for j in (-1, 0, 1) if (i, j) != (0, 0)], dtype=float) @ b
+
+    def grid(half, m):
+        kx = np.linspace(-half[0], half[0], m)
+        ky = np.linspace(-half[1], half[1], m)
+        k = np.stack(np.meshgrid(kx, ky), axis=-1)
+        dist0 = np.sum(k * k, axis=-1)
+        inside = np.all(np.sum((k[..., None, :] - near) ** 2, axis=-1) >= dist0[..., None] - 1e-9, axis=-1)
+        return kx, ky, k, inside
+
+    # a generous box first, then the tight box around the zone it reveals
+    wide = np.full(2, float(np.max(np.linalg.norm(b, axis=1))))
+    _, _, k, inside = grid(wide, 201)
+    half = np.max(np.abs(k[inside]), axis=0) + 2.0 * wide / 200
+    kx, ky, _, inside = grid(half, n)
     return kx, ky, inside
 
 

@@ -16,8 +16,10 @@ import numpy as np
 from physics import scenario as scn
 from physics.driving import field_intensity_map, fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
-from physics.exports import (decay_csv, far_field_csv, field_map_csv, guided_csv,
-                             read_amplitudes_csv, scan_csv, spectrum_csv)
+from physics import bands as bnd
+from physics.exports import (bands_csv, bands_map_csv, decay_csv, far_field_csv, field_map_csv,
+                             finite_bands_csv, guided_csv, read_amplitudes_csv, scan_csv,
+                             spectrum_csv)
 from physics.hamiltonian import coupling_matrix
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
@@ -388,6 +390,75 @@ def cmd_decay(args) -> int:
     return 0
 
 
+def _rate_text(g: float) -> str:
+    """A decay rate, with rounding noise (|Γ| < 1e-12 Γ0) shown as 0."""
+    return "0" if abs(g) < 1e-12 else f"{g:.4g}"
+
+
+#: Largest finite array whose modes `choir bands --finite` places on the bands (dense solve).
+FINITE_ON_BANDS_LIMIT = 3000
+
+
+def cmd_bands(args) -> int:
+    sc = _load(args.scenario)
+    tr = sc.transition
+    lat, dipole, notes = sc.periodic_model()
+    vector = args.polarization == "all"
+    pol = "vector" if vector else dipole
+    try:
+        path = bnd.band_path(lat, args.points, pol)
+    except ValueError as exc:
+        raise UsageError(f"--points: {str(exc).split(': ', 1)[-1]}") from None
+    res = bnd.bands(lat, path.k, pol)
+    out = _out_dir(args, "-bands")
+    (out / "bands.csv").write_text(bands_csv(path, res, tr), encoding="utf-8")
+    written = [out / "bands.csv"]
+    if args.map:
+        if isinstance(lat, bnd.Chain):
+            raise UsageError("--map: a chain's zone is a line; its path already covers it")
+        try:
+            kx, ky, inside = bnd.brillouin_zone_grid(lat, args.map)
+        except ValueError as exc:
+            raise UsageError(f"--map: {str(exc).split(': ', 1)[-1]}") from None
+        k = np.stack(np.meshgrid(kx, ky), axis=-1)[inside]
+        (out / "bands_map.csv").write_text(bands_map_csv(k, bnd.bands(lat, k, pol)), encoding="utf-8")
+        written.append(out / "bands_map.csv")
+    if args.finite:
+        em = sc.emitters()
+        if em.n > FINITE_ON_BANDS_LIMIT:
+            raise UsageError(f"--finite: the array has {em.n} emitters; placing every mode on the "
+                             f"bands needs all eigenvectors, allowed up to {FINITE_ON_BANDS_LIMIT}")
+        sol = solve_scenario(replace(sc, environment=((("kind", "free_space"),),)))
+        placed = bnd.finite_on_bands(lat, em, sol.modes.vectors, dipole, path)
+        (out / "finite_modes.csv").write_text(finite_bands_csv(sol.modes, placed), encoding="utf-8")
+        written.append(out / "finite_modes.csv")
+    k0 = bnd.bands(lat, np.zeros((1,) if isinstance(lat, bnd.Chain) else (1, 2)), pol)
+    inside = res.orders > 0
+    dark = np.nanmax(np.abs(res.decay_rate[~inside])) if (~inside).any() else None
+    check = bnd.ewald_check(lat, path.k[:: max(1, len(path.k) // 20)], pol)
+    lines = [
+        f"Choir bands — {sc.name or Path(args.scenario).name}",
+        *(f"  {n}" for n in bnd.lattice_notes(lat) + notes),
+        f"  dipoles: {'all three polarisations (vector problem)' if vector else _dipole_text(sc)}",
+        f"  path {' – '.join(t[1] for t in path.ticks)}, {len(path.k)} points, "
+        f"{res.shift.shape[1]} band(s)",
+        "  k = 0: " + "; ".join(f"shift {w:+.4g} Γ0, decay rate {_rate_text(g)} Γ0"
+                                for w, g in zip(k0.shift[0], k0.decay_rate[0])),
+        f"  shifts from {np.nanmin(res.shift):+.4g} to {np.nanmax(res.shift):+.4g} Γ0; "
+        f"decay rates up to {np.nanmax(res.decay_rate):.4g} Γ0",
+        (f"  outside the light cone ({int((~inside).sum())} points): largest |decay rate| {dark:.1e} Γ0"
+         if dark is not None else "  every path point lies inside the light cone of some order"),
+        f"  lattice-sum check: {check:.1e} relative change with the Ewald splitting parameter"
+        if not isinstance(lat, bnd.Chain) else "  lattice sums: closed form (polylogarithms)",
+    ]
+    if np.isnan(res.shift).any():
+        lines.append(f"  {int(np.isnan(res.shift).any(axis=1).sum())} point(s) lie on the light "
+                     "line of an order, where the shift diverges (left empty)")
+    lines += [f"  {MODEL_LIMITS}", "  wrote " + ", ".join(str(p) for p in written)]
+    print("\n".join(lines))
+    return 0
+
+
 def cmd_serve(args) -> int:
     sc = _load(args.scenario) if args.scenario else None
     if not 1 <= args.port <= 65535:
@@ -507,6 +578,18 @@ def build_parser() -> argparse.ArgumentParser:
     s3.add_argument("--points", type=int, default=201, help="time points")
     s3.add_argument("--out", help="output folder (default: <scenario name>-decay)")
     s3.set_defaults(func=cmd_decay)
+
+    b = sub.add_parser("bands", help="bands of the infinite lattice behind a generated array: "
+                       "collective shifts and decay rates vs quasi-momentum (CSV)")
+    b.add_argument("scenario")
+    b.add_argument("--points", type=int, default=200, help="k-points along the path (2 to 20000)")
+    b.add_argument("--polarization", choices=["scenario", "all"], default="scenario",
+                   help="the scenario's dipole on every site, or all three polarisations")
+    b.add_argument("--map", type=int, help="also a map over the Brillouin zone, N × N points (5 to 1001)")
+    b.add_argument("--finite", action="store_true",
+                   help="also place the finite array's modes on the bands (finite_modes.csv)")
+    b.add_argument("--out", help="output folder (default: <scenario name>-bands)")
+    b.set_defaults(func=cmd_bands)
 
     e = sub.add_parser("serve", help="open the explorer in the browser (localhost by default)")
     e.add_argument("scenario", nargs="?", help="scenario file to start from (.json)")

@@ -72,6 +72,7 @@ __all__ = [
     "lattice_notes",
     "site_cells",
     "mode_momenta",
+    "finite_on_bands",
     "specular_response",
 ]
 
@@ -481,8 +482,9 @@ def _corners(lat: Chain | PlanarLattice, dipole) -> list[tuple[str, np.ndarray]]
     if lat.kind in ("square", "rectangular"):
         X, Y = b[0] / 2.0, b[1] / 2.0
         pts = [("Γ", 0 * X), ("X", X), ("M" if lat.kind == "square" else "S", X + Y)]
-        d = dipole_vector(dipole) if isinstance(dipole, str) and dipole != "vector" else None
-        symmetric = lat.kind == "square" and (dipole == "vector" or (d is not None and abs(d[0]) == abs(d[1])))
+        vector = isinstance(dipole, str) and dipole == "vector"
+        d = None if vector else _dipoles(lat, dipole)[0]
+        symmetric = lat.kind == "square" and (d is None or bool(np.isclose(abs(d[0]), abs(d[1]))))
         if symmetric:
             return pts + [("Γ", 0 * X)]
         return pts + [("Y", Y), ("Γ", 0 * X)]
@@ -611,8 +613,8 @@ def lattice_notes(lat: Chain | PlanarLattice) -> list[str]:
         else:
             notes.append("d ≥ λ0: several diffraction orders radiate even at k = 0.")
         return notes
-    G = np.linalg.norm(lat.reciprocal, axis=1)
-    b_min = float(np.min(np.linalg.norm(_lattice_points(lat.reciprocal, 2 * np.max(G))[1:], axis=1)))
+    G = np.linalg.norm(_lattice_points(lat.reciprocal, 2.0 * np.max(np.linalg.norm(lat.reciprocal, axis=1))), axis=1)
+    b_min = float(np.min(G[G > 0]))
     notes = [f"{lat.kind} lattice, {lat.n_basis} site(s) per cell, cell area {lat.area:.4g} λ0²."]
     if b_min > 2.0 * K0:
         notes.append("Shortest reciprocal vector > 2k0: the zone boundary lies outside the light cone; "
@@ -702,8 +704,79 @@ def mode_momenta(lat: Chain | PlanarLattice, em: Emitters, vectors: np.ndarray,
             ks[start:start + 64] = frac * lat.reciprocal
         else:
             ks[start:start + 64] = lat.fold(frac @ lat.reciprocal)
-    ks = np.abs(ks)
-    return {"k": ks[:, 0] if isinstance(lat, Chain) else ks, "weight": np.clip(weights, 0.0, 1.0)}
+    folded = np.abs(ks)
+    return {"k": folded[:, 0] if isinstance(lat, Chain) else folded,
+            "k_peak": ks[:, 0] if isinstance(lat, Chain) else ks,
+            "weight": np.clip(weights, 0.0, 1.0), "cells": cells, "sublattice": sub}
+
+
+def _point_group(lat: PlanarLattice, dipole) -> np.ndarray:
+    """2×2 operations on k that leave the bands unchanged for this lattice and dipole.
+
+    Mirrors kx → −kx and ky → −ky hold for all lattices here with dipoles along
+    x, y or z (a mirror flips at most the dipole's sign, a gauge).  With
+    out-of-plane dipoles (or all three polarisations) the full point group of
+    the lattice holds: C4v for square, C6v for the hexagonal lattices.
+    """
+    mirrors = [np.diag([sx, sy]) for sx in (1.0, -1.0) for sy in (1.0, -1.0)]
+    d = None if (isinstance(dipole, str) and dipole == "vector") else _dipoles(lat, dipole)[0]
+    full = d is None or bool(np.allclose(np.abs(d), [0.0, 0.0, 1.0]))
+    if not full or lat.kind == "rectangular":
+        return np.array(mirrors)
+    n = 4 if lat.kind == "square" else 6
+    rots = [np.array([[np.cos(t), -np.sin(t)], [np.sin(t), np.cos(t)]])
+            for t in 2.0 * np.pi * np.arange(n) / n]
+    return np.array([r @ m for r in rots for m in mirrors])
+
+
+def finite_on_bands(lat: Chain | PlanarLattice, em: Emitters, vectors: np.ndarray, dipole,
+                    path: BandPath) -> dict[str, np.ndarray] | None:
+    """Place a finite array's modes on the infinite lattice's bands.
+
+    For each mode (column of ``vectors``): its approximate quasi-momentum
+    (:func:`mode_momenta`), the band whose Bloch vector at that k overlaps it
+    most, that band's shift and decay rate at that k, and the nearest point
+    of ``path`` (arc-length coordinate and distance from it [1/λ0]; the
+    comparison is meaningful only when the distance is small).
+
+    Returns None when ``em`` is not a patch of ``lat``.
+    """
+    mm = mode_momenta(lat, em, vectors)
+    if mm is None:
+        return None
+    v = np.asarray(vectors)
+    v = v[:, None] if v.ndim == 1 else v
+    kp = mm["k_peak"]
+    H = bloch_hamiltonian(lat, kp, dipole)
+    n_modes, nb = v.shape[1], lat.n_basis
+    band = np.zeros(n_modes, dtype=int)
+    shift = np.full(n_modes, np.nan)
+    rate = np.full(n_modes, np.nan)
+    cells, sub = mm["cells"], mm["sublattice"]
+    R = cells * lat.spacing if isinstance(lat, Chain) else cells @ lat.vectors
+    for m in range(n_modes):
+        if not np.isfinite(H[m]).all():
+            continue
+        w, u = np.linalg.eig(H[m])
+        if nb > 1:
+            phase = np.exp(-1j * (R[:, 0] * kp[m] if isinstance(lat, Chain) else R @ kp[m]))
+            amp = np.array([np.sum(v[sub == b, m] * phase[sub == b]) for b in range(nb)])
+            u = u / np.linalg.norm(u, axis=0)
+            band_m = int(np.argmax(np.abs(np.conj(u).T @ amp)))
+        else:
+            band_m = 0
+        order = np.argsort(w.real)
+        band[m] = int(np.flatnonzero(order == band_m)[0])
+        shift[m], rate[m] = w[band_m].real, -2.0 * w[band_m].imag
+    if isinstance(lat, Chain):
+        dist = np.abs(mm["k"][:, None] - np.abs(path.k)[None, :])
+    else:
+        images = lat.fold(np.einsum("oij,mj->moi", _point_group(lat, dipole), kp))   # (M, ops, 2)
+        dist = np.min(np.linalg.norm(images[:, :, None, :] - path.k[None, None], axis=-1), axis=1)
+    near = np.argmin(dist, axis=1)
+    return {"k": mm["k"], "weight": mm["weight"], "band": band, "shift": shift,
+            "decay_rate": rate, "path_distance": path.distance[near],
+            "off_path": dist[np.arange(n_modes), near]}
 
 
 # ------------------------------------------------------------------ specular reflection

@@ -17,7 +17,7 @@ from .modes import Modes
 from .units import Transition
 
 __all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv", "field_map_csv",
-           "read_amplitudes_csv",
+           "read_amplitudes_csv", "bands_csv", "bands_map_csv", "finite_bands_csv",
            "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
@@ -169,3 +169,69 @@ def read_amplitudes_csv(text: str, n: int) -> np.ndarray:
     if np.linalg.norm(c) < 1e-12:
         raise ValueError("amplitudes: all zero; give a non-zero state")
     return c
+
+
+def _k_columns(k: np.ndarray) -> tuple[list[str], np.ndarray]:
+    """Quasi-momentum columns in units of k0 (one for a chain, two for a plane)."""
+    k = np.asarray(k, dtype=float)
+    if k.ndim == 1:
+        return ["k_per_k0"], k[:, None] / (2.0 * np.pi)
+    return ["kx_per_k0", "ky_per_k0"], k / (2.0 * np.pi)
+
+
+def bands_csv(path, result, transition: Transition) -> str:
+    """Bands along a path (physics.bands.band_path + bands) as long-format CSV text.
+
+    One row per (k-point, band); decay rates outside the light cone are zero
+    to rounding; NaN where an order lies on the light line.
+    """
+    names, kcols = _k_columns(path.k)
+    buf = io.StringIO()
+    buf.write("# path: " + "  ".join(f"{label} at {float(s)!r}" for s, label in path.ticks)
+              + " (arc length in 1/lambda0)\n")
+    w = csv.writer(buf, lineterminator="\n")
+    extra = ["out_of_plane_weight"] if result.out_of_plane is not None else []
+    w.writerow(["arc_length_per_lambda0"] + names + ["band", "shift_gamma0", "decay_rate_gamma0",
+                                                     "shift_mhz", "decay_rate_mhz", "open_orders"]
+               + extra)
+    for i in range(len(path.distance)):
+        for b in range(result.shift.shape[1]):
+            row = [path.distance[i], *kcols[i], b, result.shift[i, b], result.decay_rate[i, b],
+                   float(transition.frequency_mhz(result.shift[i, b])),
+                   float(transition.frequency_mhz(result.decay_rate[i, b])), result.orders[i]]
+            row += [result.out_of_plane[i, b]] if extra else []
+            w.writerow([repr(float(v)) if isinstance(v, float) else int(v) for v in row])
+    return buf.getvalue()
+
+
+def bands_map_csv(k: np.ndarray, result) -> str:
+    """Bands on a grid over the Brillouin zone as long-format CSV text (points inside the zone)."""
+    names, kcols = _k_columns(k)
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(names + ["band", "shift_gamma0", "decay_rate_gamma0", "open_orders"])
+    for i in range(len(kcols)):
+        for b in range(result.shift.shape[1]):
+            w.writerow([repr(float(v)) for v in kcols[i]]
+                       + [b, repr(float(result.shift[i, b])), repr(float(result.decay_rate[i, b])),
+                          int(result.orders[i])])
+    return buf.getvalue()
+
+
+def finite_bands_csv(modes: Modes, placed: dict) -> str:
+    """A finite array's modes beside the infinite lattice's band at their quasi-momentum."""
+    names, kcols = _k_columns(placed["k"])
+    buf = io.StringIO()
+    buf.write("# k: peak of each mode's Fourier transform, folded to k >= 0; momentum_weight: "
+              "share of the mode in that peak (1 = a clean Bloch wave)\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["mode", "shift_gamma0", "decay_rate_gamma0"] + names
+               + ["momentum_weight", "band", "band_shift_gamma0", "band_decay_rate_gamma0",
+                  "path_arc_length_per_lambda0", "distance_from_path_per_lambda0"])
+    for m in range(modes.n):
+        w.writerow([m, repr(float(modes.shifts[m])), repr(float(modes.decay_rates[m]))]
+                   + [repr(float(v)) for v in kcols[m]]
+                   + [repr(float(placed["weight"][m])), int(placed["band"][m]),
+                      repr(float(placed["shift"][m])), repr(float(placed["decay_rate"][m])),
+                      repr(float(placed["path_distance"][m])), repr(float(placed["off_path"][m]))])
+    return buf.getvalue()

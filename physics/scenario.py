@@ -137,6 +137,34 @@ class Scenario:
         """The environment object for :func:`physics.coupling_matrix` (a sum if several parts)."""
         return _build_environment(self.environment)
 
+    def periodic_model(self):
+        """The infinite lattice behind this array, its dipole and notes on what bands leave out.
+
+        Returns (lattice, dipole vector, notes).  Raises ScenarioError when the
+        geometry has no infinite counterpart or the dipole varies between sites.
+        """
+        from . import bands
+
+        if self.lattice not in bands.PERIODIC_KINDS:
+            raise ScenarioError("geometry.lattice", f"'{self.lattice}' has no infinite counterpart; "
+                                f"bands need one of: {', '.join(bands.PERIODIC_KINDS)}")
+        try:
+            lat = bands.periodic_lattice(self.lattice, dict(self.geometry))
+        except ValueError as exc:
+            field_name, _, msg = str(exc).partition(": ")
+            raise ScenarioError(f"geometry.{field_name.split('.')[-1]}", msg) from None
+        d = self.emitters().uniform_dipole
+        if d is None:
+            raise ScenarioError("dipole", "bands need the same dipole on every site; "
+                                "'radial' and 'tangential' vary from site to site")
+        notes = []
+        kinds = [dict(part)["kind"] for part in self.environment]
+        scale = [dict(part).get("scale", 1.0) for part in self.environment if dict(part)["kind"] == "free_space"]
+        if kinds != ["free_space"] or scale != [1.0]:
+            notes.append("Bands are for emitters in free space only; this scenario's "
+                         + ", ".join(k for k in kinds) + " environment is left out of them.")
+        return lat, d, notes
+
     def with_emitters(self, em: Emitters) -> "Scenario":
         """This scenario with an explicit list of positions and per-emitter dipoles."""
         geo = (("lattice", "explicit"),

@@ -167,3 +167,39 @@ def test_decay_of_one_emitter_is_exponential(tmp_path):
 def test_scan_and_decay_refuse_bad_input(args, words):
     res = run_cli(*args)
     assert res.returncode == 2 and words in res.stderr and "Traceback" not in res.stderr
+
+
+def test_bands_of_a_square_array(tmp_path):
+    # Square lattice a = 0.4 λ0, x-dipoles: Γ(k = 0) = (3/4π)(λ0/a)² Γ0
+    # (E. Shahmoon et al., Phys. Rev. Lett. 118, 113601 (2017)); zero outside the light cone.
+    res = run_cli("new", "--lattice", "square", "--nx", "6", "--ny", "6", "--spacing", "0.4")
+    (tmp_path / "sq.json").write_text(res.stdout)
+    res = run_cli("bands", str(tmp_path / "sq.json"), "--points", "120", "--map", "21",
+                  "--finite", "--out", str(tmp_path / "out"))
+    assert res.returncode == 0, res.stderr
+    assert "path Γ – X – M – Y – Γ" in res.stdout and "Model:" in res.stdout
+    with open(tmp_path / "out" / "bands.csv", newline="") as fh:
+        rows = list(csv.DictReader(line for line in fh if not line.startswith("#")))
+    assert len(rows) == 120 or abs(len(rows) - 120) <= 4
+    first = rows[0]
+    assert float(first["decay_rate_gamma0"]) == pytest.approx(3 / (4 * np.pi) / 0.16, rel=1e-12)
+    dark = [abs(float(r["decay_rate_gamma0"])) for r in rows
+            if r["open_orders"] == "0" and r["shift_gamma0"] != "nan"]
+    assert dark and max(dark) < 1e-12
+    with open(tmp_path / "out" / "finite_modes.csv", newline="") as fh:
+        modes = list(csv.DictReader(line for line in fh if not line.startswith("#")))
+    assert len(modes) == 36
+    assert (tmp_path / "out" / "bands_map.csv").stat().st_size > 1000
+
+
+@pytest.mark.parametrize("args, words", [
+    pytest.param(["bands", "scenarios/nonagon_ring.json"],
+                 "geometry.lattice: 'ring' has no infinite counterpart", id="ring"),
+    pytest.param(["bands", "scenarios/mirror_square_16x16.json", "--points", "1"],
+                 "--points: 1 is out of range; allowed 2…20000", id="points"),
+    pytest.param(["bands", "scenarios/mirror_square_16x16.json", "--map", "3"],
+                 "--map: 3 is out of range; allowed 5…1001", id="map"),
+])
+def test_bands_refuses_bad_input(args, words):
+    res = run_cli(*args)
+    assert res.returncode == 2 and words in res.stderr and "Traceback" not in res.stderr

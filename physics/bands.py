@@ -730,7 +730,7 @@ def _point_group(lat: PlanarLattice, dipole) -> np.ndarray:
 
 
 def finite_on_bands(lat: Chain | PlanarLattice, em: Emitters, vectors: np.ndarray, dipole,
-                    path: BandPath) -> dict[str, np.ndarray] | None:
+                    path: BandPath, oversample: int = 4) -> dict[str, np.ndarray] | None:
     """Place a finite array's modes on the infinite lattice's bands.
 
     For each mode (column of ``vectors``): its approximate quasi-momentum
@@ -741,7 +741,7 @@ def finite_on_bands(lat: Chain | PlanarLattice, em: Emitters, vectors: np.ndarra
 
     Returns None when ``em`` is not a patch of ``lat``.
     """
-    mm = mode_momenta(lat, em, vectors)
+    mm = mode_momenta(lat, em, vectors, oversample)
     if mm is None:
         return None
     v = np.asarray(vectors)
@@ -754,20 +754,21 @@ def finite_on_bands(lat: Chain | PlanarLattice, em: Emitters, vectors: np.ndarra
     rate = np.full(n_modes, np.nan)
     cells, sub = mm["cells"], mm["sublattice"]
     R = cells * lat.spacing if isinstance(lat, Chain) else cells @ lat.vectors
-    for m in range(n_modes):
-        if not np.isfinite(H[m]).all():
-            continue
-        w, u = np.linalg.eig(H[m])
+    good = np.flatnonzero(np.isfinite(H).all(axis=(1, 2)))
+    if len(good):
+        w, u = np.linalg.eig(H[good])                       # batched over modes
+        order = np.argsort(w.real, axis=1)
+        pick = np.zeros(len(good), dtype=int)
         if nb > 1:
-            phase = np.exp(-1j * (R[:, 0] * kp[m] if isinstance(lat, Chain) else R @ kp[m]))
-            amp = np.array([np.sum(v[sub == b, m] * phase[sub == b]) for b in range(nb)])
-            u = u / np.linalg.norm(u, axis=0)
-            band_m = int(np.argmax(np.abs(np.conj(u).T @ amp)))
-        else:
-            band_m = 0
-        order = np.argsort(w.real)
-        band[m] = int(np.flatnonzero(order == band_m)[0])
-        shift[m], rate[m] = w[band_m].real, -2.0 * w[band_m].imag
+            phase = np.exp(-1j * (R[:, :1] * kp[good][None, :] if isinstance(lat, Chain)
+                                  else R @ kp[good].T))     # (N, M)
+            amp = np.stack([np.sum(v[sub == b][:, good] * phase[sub == b], axis=0)
+                            for b in range(nb)], axis=1)    # (M, nb)
+            u = u / np.linalg.norm(u, axis=1, keepdims=True)
+            pick = np.argmax(np.abs(np.einsum("mba,mb->ma", np.conj(u), amp)), axis=1)
+        chosen = w[np.arange(len(good)), pick]
+        band[good] = np.argmax(order == pick[:, None], axis=1)
+        shift[good], rate[good] = chosen.real, -2.0 * chosen.imag
     if isinstance(lat, Chain):
         dist = np.abs(mm["k"][:, None] - np.abs(path.k)[None, :])
     else:

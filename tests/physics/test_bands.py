@@ -321,3 +321,20 @@ def test_sheet_conserves_energy_with_diffraction(kind, geo, direction, pol):
     out = B.specular_response(lat, np.linspace(-4, 4, 9), "y", direction=direction, polarization=pol)
     np.testing.assert_allclose(out["R"] + out["T"] + out["diffracted"], 1.0, atol=1e-12)
     assert np.all(out["orders"] >= 1)
+
+
+def test_finite_modes_sit_on_their_bands_ever_closer():
+    # Bulk modes of a finite array are close to Bloch waves: at the momentum of
+    # their Fourier peak, their shift approaches the infinite lattice's band value
+    # as the array grows (finite-size convergence; Phys. Rev. X 7, 031024 (2017)).
+    # Both bands of the honeycomb lattice must receive modes.
+    lat = B.periodic_lattice("honeycomb", {"spacing": 0.2})
+    medians = []
+    for n in (8, 16):
+        em = lattices.honeycomb(n, n, 0.2, "z")
+        m = solve_modes(em, FreeSpace())
+        placed = B.finite_on_bands(lat, em, m.vectors, "z", B.band_path(lat, 100, "z"))
+        clean = placed["weight"] > 0.3
+        assert set(placed["band"][clean]) == {0, 1}
+        medians.append(np.median(np.abs(m.shifts - placed["shift"])[clean]))
+    assert medians[1] < 0.5 * medians[0] and medians[1] < 0.01

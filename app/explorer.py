@@ -18,12 +18,12 @@ import numpy as np
 import panel as pn
 
 from physics import scenario as scn
-from physics.exports import spectrum_csv
+from physics.exports import bands_csv, spectrum_csv
 from physics.lattices import ring_radius
 from physics.waveguide import guided_figures
 
 from .state import NEAR_FIELD_WARN, ExplorerState
-from .views import ArrayView, FarFieldView, ProbeView, SpectrumView, mode_card_html
+from .views import ArrayView, BandsView, FarFieldView, ProbeView, SpectrumView, mode_card_html
 
 __all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
 
@@ -394,6 +394,49 @@ def _url_refused(state: ExplorerState):
     return report
 
 
+def _bands_card(state: ExplorerState) -> tuple[pn.Card, BandsView]:
+    """The collapsible bands section; bands are computed only while it is open."""
+    view = BandsView(state)
+    summary = pn.pane.HTML("", styles={"font-size": "12px", "color": "#333"},
+                           sizing_mode="stretch_width")
+    selection = pn.pane.HTML("", styles={"font-size": "12px", "color": "#333"},
+                             sizing_mode="stretch_width")
+
+    def show(*_):
+        summary.object = html.escape(view.summary)
+        selection.object = html.escape(view.selection_text)
+
+    state.param.watch(show, ["bands", "selected_mode", "units", "transition"])
+    download = pn.widgets.FileDownload(
+        callback=lambda: io.StringIO(
+            bands_csv(state.bands.path, state.bands.bands, state.transition_obj)
+            if state.bands is not None and state.bands.path is not None else ""),
+        filename="choir-bands.csv", label="Download bands (.csv)", sizing_mode="fixed", width=200)
+    explain = pn.pane.HTML(
+        "<span style='font-size:11px;color:#555'>An infinite array with the same lattice, "
+        "spacing and dipoles: each quasi-momentum k along the path (Γ = zone centre) has one "
+        "collective mode per emitter of the unit cell (three per emitter for all three "
+        "polarisations). Shaded: the Bloch wave, or one of its diffraction orders k + G, lies "
+        "inside the light cone and radiates; elsewhere the decay rate is zero (guided along the "
+        "array). Open circles: this array's modes, placed at the peak of their spatial Fourier "
+        "transform (only those within reach of the path are drawn; click one to select it). "
+        "Lattice sums: closed form for chains, Ewald summation for planar lattices. Free space "
+        "only.</span>", sizing_mode="stretch_width")
+    card = pn.Card(
+        pn.Row(_select(state, "bands_polarization", pn.widgets.RadioButtonGroup), download,
+               sizing_mode="stretch_width"),
+        summary, selection, pn.Row(*view.figures, sizing_mode="stretch_width"), explain,
+        title="Bands of the infinite lattice (open to compute)", collapsed=True,
+        sizing_mode="stretch_width", name="choir-bands-card")
+    def opened(event):
+        state.bands_visible = not event.new
+        card.title = ("Bands of the infinite lattice" if not event.new
+                      else "Bands of the infinite lattice (open to compute)")
+
+    card.param.watch(opened, "collapsed")
+    return card, view
+
+
 def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None):
     """One explorer page (a Panel layout) with its own session state."""
     doc = pn.state.curdoc
@@ -418,6 +461,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         probe_summary, pn.Row(*probe.figures, sizing_mode="stretch_width"),
         sizing_mode="stretch_width")
 
+    bands_row, bands = _bands_card(state)
     sidebar, widgets = _controls(state)
     card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
     state.param.watch(lambda *_: setattr(card, "object", mode_card_html(state)),
@@ -479,11 +523,12 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.Row(pn.Column(far.figure, ff_note, sizing_mode="stretch_width"),
                pn.Column(card, sizing_mode="stretch_width", max_width=420),
                sizing_mode="stretch_width"),
-        probe_row, model, sizing_mode="stretch_width")
+        probe_row, bands_row, model, sizing_mode="stretch_width")
     page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
                      sizing_mode="stretch_both")
     page.explorer_state = state  # tests and notebooks reach the session state here
     page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "probe": probe,
+                           "bands": bands, "bands_card": bands_row,
                            "widgets": widgets,
                            "spinner": spinner, "error": error, "caution": caution}
 

@@ -16,6 +16,7 @@ from typing import Any, Callable
 import numpy as np
 import param
 
+from physics import bands as bnd
 from physics import scenario as scn
 from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters, nearest_neighbour_distance, polar_dipole
@@ -27,7 +28,7 @@ from physics.hamiltonian import coupling_matrix
 from physics.units import TRANSITIONS, Transition
 from physics.waveguide import upstream_emitter
 
-__all__ = ["ExplorerState", "Result", "ModeResult", "SyncRunner", "LIVE_DRAG_LIMIT",
+__all__ = ["ExplorerState", "Result", "ModeResult", "BandsResult", "SyncRunner", "LIVE_DRAG_LIMIT",
            "NEAR_FIELD_WARN", "FAR_FIELD_PIXELS"]
 
 #: Sliders recompute while dragging up to this many emitters, on release above.
@@ -50,6 +51,12 @@ DEFECTIVE_NOTE = (
 ANALYSIS_POINTS = 201
 MAP_PIXELS = 61
 DECAY_POINTS = 151
+
+#: Path points and zone-map pixels of the explorer's bands view; largest array whose
+#: modes are placed on the bands (each needs a Fourier transform).
+BANDS_PATH_POINTS = 240
+BANDS_MAP_PIXELS = 61
+BANDS_PLACE_LIMIT = 2500
 
 #: Most undo steps kept.
 UNDO_DEPTH = 50
@@ -112,6 +119,22 @@ class Analysis:
     decay: dict  # physics.dynamics.decay_observables
     decay_label: str
     note: str
+
+
+@dataclass(frozen=True)
+class BandsResult:
+    """Bands of the infinite lattice behind the current array (see physics.bands)."""
+
+    generation: int
+    note: str                 # why there are no bands, or what they leave out ("" if nothing)
+    lattice: Any = None       # physics.bands.Chain | PlanarLattice, None when unavailable
+    path: Any = None          # physics.bands.BandPath
+    bands: Any = None         # physics.bands.Bands along the path
+    placed: dict | None = None  # physics.bands.finite_on_bands, None if not placed
+    map: tuple | None = None  # (kx, ky, decay (n_bands, ny, nx), shift) over the zone, NaN outside
+    orders_centres: np.ndarray | None = None  # −G of orders whose light circles cross the map
+    notes: tuple[str, ...] = ()
+    vector: bool = False      # all three polarisations
 
 
 class SyncRunner:
@@ -252,10 +275,18 @@ class ExplorerState(param.Parameterized):
                                doc="Length of the decay curve [1/Γ0]")
     map_plane = param.Selector(objects=["xz", "yz", "xy"], default="xz",
                                doc="Plane of the field map through the array centre (no unit)")
+    bands_polarization = param.Selector(
+        objects={"the array's dipole": "scenario", "all three polarisations": "all"},
+        default="scenario", doc="Bands: the array's dipole on every site, or the full vector "
+        "problem with x, y and z dipoles on every site (no unit)")
+    bands_visible = param.Boolean(False, doc="Bands are computed while their view is open "
+                                  "(no unit)")
+
     # --- outputs ------------------------------------------------------------
     result = param.Parameter(None, doc="Latest solved arrangement, a Result (no unit)")
     mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")
     analysis = param.Parameter(None, doc="Probe scan, field map and decay, an Analysis (no unit)")
+    bands = param.Parameter(None, doc="Bands of the infinite lattice, a BandsResult (no unit)")
     message = param.String("", doc="Last refusal or error, shown to the user (text, no unit)")
     busy = param.Boolean(False, doc="True while a computation runs (no unit)")
     undo_depth = param.Integer(0, bounds=(0, UNDO_DEPTH), doc="Edits that can be undone (count)")
@@ -266,6 +297,7 @@ class ExplorerState(param.Parameterized):
         self._generation = 0
         self._mode_generation = 0
         self._analysis_generation = 0
+        self._bands_generation = 0
         self._undo: list[scn.Scenario] = []
         self._applying = False
         self._loaded: scn.Scenario | None = None
@@ -532,6 +564,7 @@ class ExplorerState(param.Parameterized):
         else:
             self._solve_mode()
         self._analyse()
+        self._compute_bands()
 
     @param.depends("selected_mode", "lens_na", watch=True)
     def _mode_inputs_changed(self) -> None:
@@ -649,6 +682,68 @@ class ExplorerState(param.Parameterized):
             self.message = f"Probe and decay not computed — {an}"
         elif an.generation == self._analysis_generation:
             self.analysis = an
+
+    # ------------------------------------------------------------ infinite lattice
+    @param.depends("bands_visible", "bands_polarization", watch=True)
+    def _bands_inputs_changed(self) -> None:
+        self._compute_bands()
+
+    def _compute_bands(self) -> None:
+        res = self.result
+        if res is None or not self.bands_visible:
+            return
+        self._bands_generation += 1
+        gen, vector = self._bands_generation, self.bands_polarization == "all"
+        self.runner.submit(lambda: self._bands_job(gen, res, vector), self._accept_bands)
+
+    @staticmethod
+    def _bands_job(gen: int, res: Result, vector: bool) -> BandsResult | Exception:
+        try:
+            lat, dipole, notes = res.scenario.periodic_model()
+        except scn.ScenarioError as exc:
+            return BandsResult(gen, f"No bands — {exc}. A drawn or edited array has no "
+                               "infinite counterpart either.")
+        try:
+            pol = "vector" if vector else dipole
+            path = bnd.band_path(lat, BANDS_PATH_POINTS, pol)
+            along = bnd.bands(lat, path.k, pol)
+            placed = None
+            if vector:
+                notes.append("The finite array's modes are placed on the bands of its own dipole "
+                             "only; choose “the array's dipole” to see them.")
+            elif res.defective:
+                notes.append("The finite array's modes are not placed: its eigenvectors carry no "
+                             "meaning (defective matrix).")
+            elif res.emitters.n > BANDS_PLACE_LIMIT:
+                notes.append(f"The finite array's modes are placed on the bands up to "
+                             f"{BANDS_PLACE_LIMIT} emitters; this array has {res.emitters.n}.")
+            else:
+                placed = bnd.finite_on_bands(lat, res.emitters, res.modes.vectors, dipole, path,
+                                             oversample=4 if res.emitters.n <= 1000 else 2)
+            fmap = centres = None
+            if isinstance(lat, bnd.PlanarLattice):
+                kx, ky, inside = bnd.brillouin_zone_grid(lat, BANDS_MAP_PIXELS)
+                k = np.stack(np.meshgrid(kx, ky), axis=-1)[inside]
+                inner = bnd.bands(lat, k, pol)
+                nb = inner.shift.shape[1]
+                decay = np.full((nb,) + inside.shape, np.nan)
+                shift = np.full((nb,) + inside.shape, np.nan)
+                decay[:, inside] = inner.decay_rate.T
+                shift[:, inside] = inner.shift.T
+                fmap = (kx, ky, decay, shift)
+                reach = float(np.hypot(kx[-1], ky[-1])) + bnd.K0
+                G = bnd.lattice_points(lat.reciprocal, reach)
+                centres = -G
+            return BandsResult(gen, "", lat, path, along, placed, fmap, centres,
+                               tuple(bnd.lattice_notes(lat) + notes), vector)
+        except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
+            return exc
+
+    def _accept_bands(self, br) -> None:
+        if isinstance(br, Exception):
+            self.message = f"Bands not computed — {br}"
+        elif br.generation == self._bands_generation:
+            self.bands = br
 
     # ------------------------------------------------------------ derived
     def cautions(self) -> list[str]:

@@ -11,8 +11,8 @@ import colorsys
 import html
 
 import numpy as np
-from bokeh.models import (ColorBar, ColumnDataSource, HoverTool, Label, LinearColorMapper,
-                          PointDrawTool, Range1d, Span, TapTool)
+from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, FixedTicker, HoverTool,
+                          Label, LinearColorMapper, PointDrawTool, Range1d, Span, TapTool)
 from bokeh.palettes import Cividis256, Inferno256
 from bokeh.plotting import figure
 
@@ -22,7 +22,7 @@ from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
 from .state import DEFECTIVE_NOTE, ExplorerState
 
-__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "mode_card_html",
+__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "BandsView", "mode_card_html",
            "PHASE_PALETTE",
            "FIGURE_LABELS"]
 
@@ -498,6 +498,246 @@ class ProbeView:
             self.channels.data = dict(xs=[], ys=[], color=[], name=[])
         d.title.text = f"Decay — {an.decay_label}"
         d.xaxis.axis_label = f"time [{st.time_label()}]"
+
+
+#: Light-cone intervals along the band path that the view can shade.
+_CONE_BOXES = 16
+#: Decades of decay rate shown by the bands' colour scale (lower = dark, grey).
+BAND_DECADES = 4.0
+_BAND_COLOURS = ["#4527a0", "#00897b", "#ef6c00", "#1565c0", "#ad1457", "#6d4c41",
+                 "#558b2f", "#5e35b1", "#00838f"]
+
+
+class BandsView:
+    """Bands of the infinite lattice behind the array, with the finite array's modes on them.
+
+    Left: collective shift along a path through the Brillouin zone, points
+    coloured by decay rate (grey: no radiation), shaded where the Bloch wave
+    lies inside the light cone; the finite array's modes as open circles at
+    the nearest path point.  Middle: decay rate along the same path.  Right:
+    the selected mode's band over the whole zone with the light circles of
+    the diffraction orders.
+    """
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        self.points = ColumnDataSource(dict(s=[], w=[], g=[], c=[], band=[], wt=[], gt=[], k=[]),
+                                       name="choir-bands-points")
+        self.lines = ColumnDataSource(dict(xs=[], ys=[], gs=[], color=[], band=[]),
+                                      name="choir-bands-lines")
+        self.finite = ColumnDataSource(dict(s=[], w=[], g=[], mode=[], wt=[], gt=[], band=[],
+                                            off=[]), name="choir-bands-finite")
+        self.marker = ColumnDataSource(dict(s=[], w=[], g=[]), name="choir-bands-marker")
+        tools = "pan,wheel_zoom,box_zoom,reset,save"
+        sh = figure(height=320, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+                    title="Collective shift of the infinite lattice", name="choir-bands-shift")
+        de = figure(height=320, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+                    title="Decay rate of the infinite lattice", name="choir-bands-decay",
+                    x_range=sh.x_range)
+        self.mapper = LinearColorMapper(palette=Cividis256, low=-BAND_DECADES, high=0.0,
+                                        low_color="#bdbdbd")
+        self.cones = []
+        for fig in (sh, de):
+            boxes = [BoxAnnotation(left=0, right=0, fill_color="#fff59d", fill_alpha=0.45,
+                                   line_alpha=0.0, visible=False, level="underlay")
+                     for _ in range(_CONE_BOXES)]
+            for b in boxes:
+                fig.add_layout(b)
+            self.cones.append(boxes)
+        sh.multi_line("xs", "ys", source=self.lines, line_color="color", line_width=1.2,
+                      line_alpha=0.6)
+        pts = sh.scatter("s", "w", source=self.points, size=5, line_alpha=0.0,
+                         fill_color={"field": "c", "transform": self.mapper})
+        de.multi_line("xs", "gs", source=self.lines, line_color="color", line_width=2.0)
+        fin = [fig.scatter("s", y, source=self.finite, size=7, marker="circle", fill_alpha=0.0,
+                           line_color="#212121", line_width=1.2, legend_label="modes of this array",
+                           nonselection_line_alpha=1.0, selection_line_alpha=1.0)
+               for fig, y in ((sh, "w"), (de, "g"))]
+        for fig, y in ((sh, "w"), (de, "g")):
+            fig.scatter("s", y, source=self.marker, size=18, fill_alpha=0.0, line_color=_ACCENT,
+                        line_width=3)
+            fig.legend.location = "top_left"
+            fig.legend.label_text_font_size = "10px"
+            fig.legend.background_fill_alpha = 0.7
+        sh.add_tools(HoverTool(renderers=[pts], tooltips=[
+            ("band", "@band"), ("k", "@k"), ("shift", "@wt"), ("decay rate", "@gt")]))
+        for fig, r in zip((sh, de), fin):
+            fig.add_tools(HoverTool(renderers=[r], tooltips=[
+                ("mode", "@mode (band @band)"), ("shift", "@wt"), ("decay rate", "@gt"),
+                ("distance from path", "@off")]))
+            fig.add_tools(TapTool(renderers=[r]))
+        self.finite.selected.on_change("indices", self._on_tap)
+        sh.add_layout(ColorBar(color_mapper=self.mapper, width=10, title_text_font_size="10px",
+                               title="log10 of decay rate / Γ0 (grey: dark, no radiation)",
+                               title_standoff=6), "right")
+        self.map_source = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]),
+                                           name="choir-bands-map")
+        self.circles = ColumnDataSource(dict(x=[], y=[]), name="choir-bands-light-circles")
+        self.map_marker = ColumnDataSource(dict(x=[], y=[]))
+        mp = figure(height=320, sizing_mode="stretch_width", tools=tools,
+                    x_range=Range1d(-1.0, 1.0), y_range=Range1d(-1.0, 1.0),
+                    toolbar_location="above", title="Decay rate over the Brillouin zone",
+                    name="choir-bands-map-plot")
+        self.map_mapper = LinearColorMapper(palette=Cividis256, low=-BAND_DECADES, high=0.0,
+                                            low_color="#bdbdbd", nan_color="rgba(0,0,0,0)")
+        mp.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.map_source,
+                 color_mapper=self.map_mapper)
+        mp.circle("x", "y", radius=1.0, source=self.circles, fill_alpha=0.0,
+                  line_color="#ef6c00", line_width=1.5, line_dash="dashed",
+                  legend_label="light circle |k + G| = k0")
+        mp.scatter("x", "y", source=self.map_marker, size=14, marker="x", line_color=_ACCENT,
+                   line_width=3)
+        mp.legend.location = "top_left"
+        mp.legend.label_text_font_size = "10px"
+        mp.legend.background_fill_alpha = 0.7
+        mp.xaxis.axis_label = "kx / k0"
+        mp.yaxis.axis_label = "ky / k0"
+        mp.add_layout(ColorBar(color_mapper=self.map_mapper, width=10, title_text_font_size="10px",
+                               title="log10 of decay rate / Γ0", title_standoff=6), "right")
+        self.figures = (sh, de, mp)
+        self.summary = ""
+        self.selection_text = ""
+        state.param.watch(self.update, ["bands", "units", "transition", "wavelength_nm",
+                                        "linewidth_mhz"])
+        state.param.watch(self.update_selection, ["selected_mode"])
+        self.update()
+
+    def update(self, *_) -> None:
+        st, br = self.state, self.state.bands
+        sh, de, mp = self.figures
+        if br is None or br.lattice is None:
+            for src in (self.points, self.lines, self.finite, self.marker, self.map_source,
+                        self.circles, self.map_marker):
+                src.data = {k: [] for k in src.data}
+            self.summary = br.note if br is not None else ""
+            self.selection_text = ""
+            return
+        path, b = br.path, br.bands
+        fu = st.frequency_label()
+        nk, nb = b.shift.shape
+        s = np.repeat(path.distance, nb)
+        w = st.to_frequency(b.shift.ravel())
+        g = st.to_frequency(b.decay_rate.ravel())
+        logg = np.log10(np.maximum(b.decay_rate.ravel(), 1e-300))
+        kk = np.atleast_2d(path.k.T).T / (2.0 * np.pi)
+        ktxt = [", ".join(f"{v:+.3f}" for v in row) + " k0" for row in kk]
+        self.points.data = dict(s=s, w=w, g=g, c=np.where(np.isfinite(logg), logg, np.nan),
+                                band=np.tile(np.arange(nb), nk),
+                                wt=[_fmt(v, fu) for v in w],
+                                gt=[_fmt(v, fu) if r > 1e-12 else "0 (outside the light cone)"
+                                    for v, r in zip(g, b.decay_rate.ravel())],
+                                k=np.repeat(ktxt, nb))
+        top = float(np.nanmax(b.decay_rate)) if np.isfinite(b.decay_rate).any() else 1.0
+        hi = np.log10(max(top, 1e-12))
+        self.mapper.update(low=hi - BAND_DECADES, high=hi)
+        self.map_mapper.update(low=hi - BAND_DECADES, high=hi)
+        self.lines.data = dict(
+            xs=[path.distance] * nb, ys=[st.to_frequency(b.shift[:, j]) for j in range(nb)],
+            gs=[st.to_frequency(b.decay_rate[:, j]) for j in range(nb)],
+            color=[_BAND_COLOURS[j % len(_BAND_COLOURS)] for j in range(nb)], band=list(range(nb)))
+        inside = b.orders > 0
+        edges = np.flatnonzero(np.diff(np.concatenate([[0], inside.astype(int), [0]])))
+        spans = list(zip(edges[::2], edges[1::2]))
+        for boxes in self.cones:
+            for i, box in enumerate(boxes):
+                if i < len(spans):
+                    lo, hi_i = spans[i]
+                    box.update(left=float(path.distance[lo]),
+                               right=float(path.distance[min(hi_i, nk - 1)]), visible=True)
+                else:
+                    box.visible = False
+        ticks = [float(t[0]) for t in path.ticks]
+        for fig in (sh, de):
+            fig.xaxis.ticker = FixedTicker(ticks=ticks)
+            fig.xaxis.major_label_overrides = {t: lab for t, lab in
+                                               zip(ticks, [t[1] for t in path.ticks])}
+            fig.xaxis.axis_label = "k along the path (shaded: radiating)"
+        pre = "ω/2π" if st.units == "lab" else "ω"
+        gpre = "Γ/2π" if st.units == "lab" else "Γ"
+        sh.yaxis.axis_label = f"collective shift {pre} [{fu}]"
+        de.yaxis.axis_label = f"decay rate {gpre} [{fu}]"
+        sh.title.text = f"Collective shift, infinite {br.lattice.kind} lattice"
+        de.title.text = f"Decay rate, infinite {br.lattice.kind} lattice"
+        if br.placed is not None:
+            pl = br.placed
+            res = st.result
+            tol = 0.15 * float(np.max(path.distance)) / max(1, len(path.ticks) - 1)
+            keep = np.flatnonzero(pl["off_path"] <= tol) if res is not None else np.array([], int)
+            if res is not None:
+                fw = st.to_frequency(res.modes.shifts[keep])
+                fg = st.to_frequency(res.modes.decay_rates[keep])
+                self.finite.data = dict(s=pl["path_distance"][keep], w=fw, g=fg, mode=keep,
+                                        wt=[_fmt(v, fu) for v in fw], gt=[_fmt(v, fu) for v in fg],
+                                        band=pl["band"][keep],
+                                        off=[f"{v / (2 * np.pi):.3f} k0" for v in pl["off_path"][keep]])
+        else:
+            self.finite.data = {k: [] for k in self.finite.data}
+        if br.map is not None:
+            kx, ky = br.map[0] / (2 * np.pi), br.map[1] / (2 * np.pi)
+            dx, dy = kx[1] - kx[0], ky[1] - ky[0]
+            self.map_source.data = dict(image=[np.zeros((len(ky), len(kx)))], x=[kx[0] - dx / 2],
+                                        y=[ky[0] - dy / 2], dw=[kx[-1] - kx[0] + dx],
+                                        dh=[ky[-1] - ky[0] + dy])
+            c = br.orders_centres / (2 * np.pi)
+            self.circles.data = dict(x=c[:, 0], y=c[:, 1])
+            half = 1.15 * float(max(kx[-1], ky[-1]))
+            mp.x_range.update(start=-half, end=half)
+            mp.y_range.update(start=-half, end=half)
+            mp.visible = True
+        else:
+            mp.visible = False
+        self.summary = " ".join(br.notes)
+        self.update_selection()
+
+    def _selected_band(self) -> tuple[int, int | None]:
+        st, br = self.state, self.state.bands
+        res = st.result
+        if br is None or br.placed is None or res is None:
+            return 0, None
+        k = min(st.selected_mode, len(br.placed["band"]) - 1)
+        return int(br.placed["band"][k]), k
+
+    def update_selection(self, *_) -> None:
+        st, br = self.state, self.state.bands
+        if br is None or br.lattice is None:
+            return
+        band, k = self._selected_band()
+        _, _, mp = self.figures
+        if br.map is not None:
+            img = np.log10(np.maximum(br.map[2][min(band, br.map[2].shape[0] - 1)], 1e-300))
+            img = np.where(np.isfinite(br.map[2][min(band, br.map[2].shape[0] - 1)]), img, np.nan)
+            self.map_source.data = dict(self.map_source.data, image=[img])
+            mp.title.text = f"Band {band} over the Brillouin zone"
+        if k is None:
+            self.marker.data = dict(s=[], w=[], g=[])
+            self.map_marker.data = dict(x=[], y=[])
+            self.selection_text = ("Select a mode to see where it sits on the bands."
+                                   if br.placed is None else "")
+            return
+        pl, res, fu = br.placed, st.result, st.frequency_label()
+        kvec = np.atleast_1d(pl["k"][k]) / (2 * np.pi)
+        self.marker.data = dict(s=[pl["path_distance"][k]],
+                                w=[float(st.to_frequency(res.modes.shifts[k]))],
+                                g=[float(st.to_frequency(res.modes.decay_rates[k]))])
+        if br.map is not None:
+            self.map_marker.data = dict(x=[kvec[0]], y=[kvec[1]])
+        ktxt = ("k ≈ (" + ", ".join(f"{v:.3f}" for v in kvec) + ") k0" if len(kvec) > 1
+                else f"k ≈ {kvec[0]:.3f} k0")
+        self.selection_text = (
+            f"Mode {k}: {ktxt} (peak of its Fourier transform, holding "
+            f"{100 * pl['weight'][k]:.0f} % of it; mirror images folded to k ≥ 0), band {band}. "
+            f"Infinite lattice at that k: shift {_fmt(float(st.to_frequency(pl['shift'][k])), fu)}, "
+            f"decay rate {_fmt(float(st.to_frequency(max(pl['decay_rate'][k], 0.0))), fu)}; "
+            f"this finite mode: shift {_fmt(float(st.to_frequency(res.modes.shifts[k])), fu)}, "
+            f"decay rate {_fmt(float(st.to_frequency(res.modes.decay_rates[k])), fu)}. "
+            f"Its k lies {pl['off_path'][k] / (2 * np.pi):.3f} k0 from the path drawn.")
+
+    def _on_tap(self, attr, old, new) -> None:
+        if not new:
+            return
+        mode = int(self.finite.data["mode"][new[0]])
+        self.finite.selected.indices = []
+        self.state.selected_mode = mode
 
 
 def mode_card_html(state: ExplorerState) -> str:

@@ -61,6 +61,7 @@ __all__ = [
     "clausen3",
     "polylog_unit_circle",
     "lattice_sum",
+    "lattice_points",
     "bloch_hamiltonian",
     "ewald_check",
     "BandPath",
@@ -281,7 +282,7 @@ def _splitting(lat: PlanarLattice) -> float:
     return max(np.sqrt(np.pi / lat.area), K0 / (2.0 * _HIGH_FREQUENCY))
 
 
-def _lattice_points(vectors: np.ndarray, radius: float, centre=(0.0, 0.0)) -> np.ndarray:
+def lattice_points(vectors: np.ndarray, radius: float, centre=(0.0, 0.0)) -> np.ndarray:
     """All m v1 + n v2 within ``radius`` of ``centre``."""
     v = np.asarray(vectors, dtype=float)
     # |m| ≤ radius·|row of inverse| bounds every point inside the disc
@@ -346,7 +347,7 @@ class _Ewald:
         reach = np.sqrt(_CUT + a * a) / E
         self.real = []
         for p, rho in enumerate(self.rho):
-            R = _lattice_points(lat.vectors, reach + np.hypot(*rho) + 1e-9, centre=(0.0, 0.0))
+            R = lattice_points(lat.vectors, reach + np.hypot(*rho) + 1e-9, centre=(0.0, 0.0))
             disp = rho - R
             near = np.hypot(disp[:, 0], disp[:, 1]) < 1e-12
             keep = ~near & (np.hypot(disp[:, 0], disp[:, 1]) <= reach)
@@ -354,7 +355,7 @@ class _Ewald:
             self.real.append((R[keep], terms, bool(near.any())))
         self.self_term = _real_space_self(E)
         span = float(np.max(np.linalg.norm(lat.reciprocal, axis=1)))
-        self.G = _lattice_points(lat.reciprocal, 2.0 * E * np.sqrt(_CUT) + span)
+        self.G = lattice_points(lat.reciprocal, 2.0 * E * np.sqrt(_CUT) + span)
 
     def tensor(self, k: np.ndarray) -> np.ndarray:
         """S_ab(k) for folded k (nk, 2) → (nk, nb, nb, 3, 3)."""
@@ -529,7 +530,7 @@ def open_orders(lat: Chain | PlanarLattice, k) -> np.ndarray:
         m = np.arange(-int(K0 / lat.reciprocal) - 2, int(K0 / lat.reciprocal) + 3)
         return np.sum(np.abs(k[:, None] + m * lat.reciprocal) < K0, axis=1)
     k = lat.fold(np.atleast_2d(np.asarray(k, dtype=float)))
-    G = _lattice_points(lat.reciprocal, K0 + float(np.max(np.linalg.norm(lat.reciprocal, axis=1))))
+    G = lattice_points(lat.reciprocal, K0 + float(np.max(np.linalg.norm(lat.reciprocal, axis=1))))
     q = k[:, None, :] + G[None]
     return np.sum(np.sum(q * q, axis=-1) < K0 ** 2, axis=1)
 
@@ -613,7 +614,7 @@ def lattice_notes(lat: Chain | PlanarLattice) -> list[str]:
         else:
             notes.append("d ≥ λ0: several diffraction orders radiate even at k = 0.")
         return notes
-    G = np.linalg.norm(_lattice_points(lat.reciprocal, 2.0 * np.max(np.linalg.norm(lat.reciprocal, axis=1))), axis=1)
+    G = np.linalg.norm(lattice_points(lat.reciprocal, 2.0 * np.max(np.linalg.norm(lat.reciprocal, axis=1))), axis=1)
     b_min = float(np.min(G[G > 0]))
     notes = [f"{lat.kind} lattice, {lat.n_basis} site(s) per cell, cell area {lat.area:.4g} λ0²."]
     if b_min > 2.0 * K0:
@@ -825,7 +826,7 @@ def specular_response(lat: PlanarLattice, detunings, dipole="x", *, direction=(0
     drive = (np.conj(d) @ eps) * np.exp(1j * basis @ k_par)
     n = H.shape[0]
     c = np.linalg.solve(H[None] - det[:, None, None] * np.eye(n)[None], -np.broadcast_to(drive, (len(det), n))[..., None])[..., 0]
-    G = _lattice_points(lat.reciprocal, 2.0 * K0)
+    G = lattice_points(lat.reciprocal, 2.0 * K0)
     kz_in = K0 * n_hat[2]
     out = {"R": np.zeros(len(det)), "T": np.zeros(len(det)), "diffracted": np.zeros(len(det))}
     n_open = 0

@@ -319,3 +319,43 @@ def test_probe_panel_shows_a_spectrum_a_map_and_a_decay(tab):
     assert tab.wait_for("const d = doc.get_model_by_name('choir-decay');"
                         "return d && d.data.t.length > 100")
     assert "Lorentzian fit" in tab.text() and "Laser safety" in tab.text()
+
+
+def test_bands_open_on_demand_and_a_finite_mode_is_clickable(tab):
+    path = ROOT / "scenarios" / "mirror_square_16x16.json"
+    tab.page.locator("input[type=file]").set_input_files(str(path))
+    tab.wait_for_points(lambda k: k == 256)
+    assert tab.data("choir-bands-points", "s") == []  # nothing computed while closed
+    tab.page.get_by_text("Bands of the infinite lattice (open to compute)").click()
+    n = tab.wait_for("const s = doc.get_model_by_name('choir-bands-points');"
+                     "return s && s.data.s.length")
+    assert n >= 200
+    finite = tab.wait_for("const s = doc.get_model_by_name('choir-bands-finite');"
+                          "return s && s.data.s.length")
+    assert finite > 10
+    assert tab.wait_for("const m = doc.get_model_by_name('choir-bands-map');"
+                        "return m && m.data.image.length === 1")
+    s = tab.data("choir-bands-finite", "s")
+    w = tab.data("choir-bands-finite", "w")
+    pick = len(s) // 2
+    tab.js("Bokeh.index.find_one(doc.get_model_by_name('choir-bands-shift'))"
+           ".el.scrollIntoView({block: 'center'}); return 1")
+    time.sleep(0.5)
+    x, y = tab.screen_xy("choir-bands-shift", s[pick], w[pick])
+    tab.page.mouse.click(x, y)
+    # the click selects the mode under the pointer (circles may overlap): the bands
+    # marker moves onto a circle within a few pixels of the click
+    before = tab.data("choir-bands-marker", "s")
+    tab.wait_for("const m = doc.get_model_by_name('choir-bands-marker');"
+                 "return m && m.data.s.length && m.data.s[0] !== arg", before[0])
+    ms, mw = tab.data("choir-bands-marker", "s")[0], tab.data("choir-bands-marker", "w")[0]
+    mx, my = tab.screen_xy("choir-bands-shift", ms, mw)
+    assert abs(mx - x) < 8 and abs(my - y) < 8
+    selected = tab.js("return doc.get_model_by_name('choir-spectrum-marker').data.x[0]")
+    assert selected is not None
+    body = tab.text()
+    assert "inside the light cone" in body and "Infinite lattice at that k" in body
+    assert "Bands of the infinite lattice (open to compute)" not in body
+    tab.page.mouse.move(5, 5)  # no tooltip over the picture
+    time.sleep(0.3)
+    tab.page.screenshot(path=str(ARTIFACTS / "explorer-bands.png"), full_page=True)

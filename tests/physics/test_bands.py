@@ -141,7 +141,7 @@ def test_ewald_independent_of_splitting(kind, geo):
 
 def _planar_direct(lat, k, rho, eps):
     """Σ_R G(ρ − R) e^{ik·R} e^{−ε|R|} with R out to damping e^{−36}."""
-    R = B._lattice_points(lat.vectors, 36.0 / eps)
+    R = B.lattice_points(lat.vectors, 36.0 / eps)
     disp = rho - R
     keep = np.hypot(*disp.T) > 1e-12
     R, disp = R[keep], disp[keep]
@@ -180,7 +180,7 @@ def test_decay_inside_light_cone_is_radiation_into_open_orders():
     d = np.array([0.6, 0.0, 0.8])
     k = np.array([[0.4, -0.9], [2.0, 1.0], [0.0, 0.0]])
     got = B.bands(lat, k, d).decay_rate[:, 0]
-    G = B._lattice_points(lat.reciprocal, 3 * K0)
+    G = B.lattice_points(lat.reciprocal, 3 * K0)
     for i, kk in enumerate(k):
         ref = 0.0
         for g in G:

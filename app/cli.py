@@ -19,7 +19,7 @@ from physics.dynamics import decay_observables, evolve, pulse_state, single_emit
 from physics import bands as bnd
 from physics.exports import (bands_csv, bands_map_csv, decay_csv, far_field_csv, field_map_csv,
                              finite_bands_csv, guided_csv, read_amplitudes_csv, scan_csv,
-                             spectrum_csv)
+                             sheet_csv, spectrum_csv)
 from physics.hamiltonian import coupling_matrix
 from physics.far_field import lens_fraction
 from physics.lattices import GENERATORS
@@ -316,6 +316,25 @@ def cmd_scan(args) -> int:
             field_map_csv(u, v, inten, args.map_plane, float(scan["detunings"][peak])),
             encoding="utf-8")
         written.append(out / "field_map.csv")
+    sheet_lines = []
+    if args.infinite:
+        lat, dipole, notes = sc.periodic_model()
+        try:
+            sheet = bnd.probe_on_sheet(lat, dipole, probe)
+        except ValueError as exc:
+            raise UsageError(f"--infinite: {str(exc).split(': ', 1)[-1]}") from None
+        (out / "sheet.csv").write_text(sheet_csv(sheet, tr), encoding="utf-8")
+        written.append(out / "sheet.csv")
+        best = int(np.argmax(sheet["R"]))
+        sheet_lines = [
+            f"  infinite array (same lattice, plane wave"
+            f"{' at normal incidence' if probe.kind == 'gaussian_beam' else ''}): peak reflection "
+            f"{sheet['R'][best]:.4g} at Δ = {sheet['detunings'][best]:.4g} Γ0; "
+            f"{int(sheet['orders'][0])} open order(s) per side",
+            "  its collective resonance(s) at that in-plane momentum: " + "; ".join(
+                f"shift {w:+.4g} Γ0, width {g:.4g} Γ0"
+                for w, g in zip(sheet["band_shift"], sheet["band_decay_rate"])),
+            *(f"  {n}" for n in notes)]
     fit = fit_resonance(scan["detunings"], signal)
     lines = [
         f"Choir scan — {sc.name or Path(args.scenario).name}",
@@ -331,6 +350,7 @@ def cmd_scan(args) -> int:
     if "cross_section" in scan:
         lines.append(f"  peak extinction cross-section {scan['cross_section'].max():.4g} λ0² "
                      f"({scan['cross_section'].max() * tr.wavelength_nm ** 2 * 1e-6:.4g} µm²)")
+    lines += sheet_lines
     lines += [f"  {MODEL_LIMITS}", "  Linear response: valid for probe intensities far below "
               "saturation. Laser safety follows local rules and licensed practice, which Choir "
               "does not assess.", "  wrote " + ", ".join(str(p) for p in written)]
@@ -560,6 +580,9 @@ def build_parser() -> argparse.ArgumentParser:
                     help="pixels across the field map (default 101)")
     s2.add_argument("--map-offset", dest="map_offset", type=float, default=0.0,
                     help="shift of the map plane along its normal from the array centre [λ0]")
+    s2.add_argument("--infinite", action="store_true",
+                    help="also the infinite array's reflection and transmission per unit cell "
+                         "(planar lattices; sheet.csv)")
     s2.add_argument("--out", help="output folder (default: <scenario name>-scan)")
     s2.set_defaults(func=cmd_scan)
 

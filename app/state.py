@@ -119,6 +119,7 @@ class Analysis:
     decay: dict  # physics.dynamics.decay_observables
     decay_label: str
     note: str
+    sheet: dict | None = None  # physics.bands.probe_on_sheet: the infinite array, if planar
 
 
 @dataclass(frozen=True)
@@ -673,7 +674,15 @@ class ExplorerState(param.Parameterized):
                 c0, label = single_emitter_state(em.n, first), f"emitter {first} excited"
             times, amps = evolve(H, c0, t_max, DECAY_POINTS)
             decay = decay_observables(H, times, amps, channels=(em, env))
-            return Analysis(gen, probe, scan, signal, name, fit, fmap, where, decay, label, note)
+            sheet = None
+            if probe.kind != "guided" and res.scenario.lattice in bnd.PERIODIC_KINDS[1:]:
+                try:
+                    lat, dipole, _ = res.scenario.periodic_model()
+                    sheet = bnd.probe_on_sheet(lat, dipole, probe)
+                except ValueError:
+                    sheet = None  # e.g. grazing incidence on a diffraction order: no comparison
+            return Analysis(gen, probe, scan, signal, name, fit, fmap, where, decay, label, note,
+                            sheet)
         except (ValueError, MemoryError, np.linalg.LinAlgError, RuntimeError) as exc:
             return exc
 

@@ -398,6 +398,9 @@ class ProbeView:
                              line_dash="dashed", legend_label="|t|²")
         self.r_line = s.line("x", "r2", source=self.spec, line_width=1.5, color="#ad1457",
                              line_dash="dotdash", legend_label="|r|²")
+        self.sheet = ColumnDataSource(dict(x=[], r2=[]), name="choir-probe-sheet")
+        self.sheet_line = s.line("x", "r2", source=self.sheet, line_width=1.5, color="#757575",
+                                 line_dash="dotted", legend_label="infinite array, reflection")
         s.legend.location = "top_right"
         s.legend.label_text_font_size = "10px"
         s.add_layout(self.marker)
@@ -463,6 +466,14 @@ class ProbeView:
         else:
             self.spec.data = dict(x=[], y=[], t2=[], r2=[])
             self.summary = an.note
+        if an.sheet is not None:
+            self.sheet.data = dict(x=st.to_frequency(an.sheet["detunings"]), r2=an.sheet["R"])
+            self.summary += ("; dotted grey: the infinite array with the same lattice, plane wave"
+                             + (" at normal incidence" if an.probe.kind == "gaussian_beam" else "")
+                             + f", peak reflection {np.max(an.sheet['R']):.3g}")
+        else:
+            self.sheet.data = dict(x=[], r2=[])
+        self.sheet_line.visible = an.sheet is not None
         s.xaxis.axis_label = f"probe detuning {fu}"
         s.title.text = f"Probe spectrum — {dict((v, k) for k, v in st.param.probe_kind.objects.items())[an.probe.kind]}"
         if an.map is not None:

@@ -75,6 +75,7 @@ __all__ = [
     "mode_momenta",
     "finite_on_bands",
     "specular_response",
+    "probe_on_sheet",
 ]
 
 #: Largest spacing (any primitive vector) the band solver accepts [λ0].
@@ -787,7 +788,7 @@ def specular_response(lat: PlanarLattice, detunings, dipole="x", *, direction=(0
                       polarization=(1.0, 0.0, 0.0)) -> dict[str, np.ndarray]:
     """Reflection and transmission of a plane wave by an infinite planar array, per unit cell.
 
-    The plane wave E0 ε e^{ik_in·r} (|E0| = 1) with k_in = k0 n̂, n̂_z > 0, drives
+    The plane wave E0 ε e^{ik_in·r} (|E0| = 1) with k_in = k0 n̂ drives
     the Bloch mode of k∥ = (k_in,x, k_in,y) with Ω_b = conj(d_b)·ε e^{ik∥·r_b}; the
     amplitudes solve (H(k∥) − Δ) c = −Ω.  The sheet radiates plane waves into
     each order k∥ + G with |k∥ + G| < k0 (Weyl expansion of G):
@@ -804,12 +805,19 @@ def specular_response(lat: PlanarLattice, detunings, dipole="x", *, direction=(0
     ``orders``    number of open orders on each side.
 
     With no loss R + T + diffracted = 1 exactly: every photon taken out of the
-    probe is re-emitted into the open orders.
+    probe is re-emitted into the open orders.  Light coming from above (n̂_z < 0)
+    is treated as the mirror image z → −z of light from below.
     """
     n_hat = np.asarray(direction, dtype=float)
     n_hat = n_hat / np.linalg.norm(n_hat)
-    if n_hat[2] <= 1e-6:
-        raise ValueError("direction: must point through the array plane (z-component > 0)")
+    if abs(n_hat[2]) <= 1e-6:
+        raise ValueError("direction: must cross the array plane (non-zero z-component)")
+    if n_hat[2] < 0:
+        # incidence from above is the mirror image z → −z of incidence from below
+        flip = np.array([1.0, 1.0, -1.0])
+        d = _dipoles(lat, dipole) * flip
+        return specular_response(lat, detunings, d, direction=n_hat * flip,
+                                 polarization=np.asarray(polarization, dtype=complex) * flip)
     eps = np.asarray(polarization, dtype=complex)
     eps = eps - n_hat * (n_hat @ eps)
     if np.linalg.norm(eps) < 1e-9:
@@ -856,4 +864,32 @@ def specular_response(lat: PlanarLattice, detunings, dipole="x", *, direction=(0
                 out["diffracted"] += np.sum(np.abs(field) ** 2, axis=1) * kz / kz_in
     out["orders"] = np.full(len(det), n_open)
     out["amplitudes"] = c
+    return out
+
+
+def probe_on_sheet(lat: Chain | PlanarLattice, dipole, probe) -> dict[str, np.ndarray]:
+    """The infinite array's specular response to a scenario's probe (physics.driving.Probe).
+
+    A plane wave keeps its direction and polarisation; a Gaussian beam is
+    compared with the plane wave at normal incidence along its axis (the
+    limit of a wide waist).  Adds ``k_parallel`` and the Bloch modes' shifts
+    and decay rates at that in-plane momentum (``band_shift``,
+    ``band_decay_rate``), whose Lorentzians make up the spectrum.
+    """
+    if probe.kind == "guided":
+        raise ValueError("kind: a guided probe has no infinite-sheet counterpart")
+    if isinstance(lat, Chain):
+        raise ValueError("geometry.lattice: a chain is not a sheet; reflection of the infinite "
+                         "array needs a planar lattice")
+    if probe.kind == "plane_wave":
+        direction = np.asarray(probe.direction, dtype=float)
+    else:
+        direction = np.array([0.0, 0.0, 1.0 if probe.beam_direction == "+z" else -1.0])
+    direction = direction / np.linalg.norm(direction)
+    out = specular_response(lat, probe.detunings, dipole, direction=direction,
+                            polarization=probe.polarization_vector())
+    k_par = K0 * direction[:2]
+    modes = bands(lat, k_par[None, :], dipole)
+    out.update(detunings=probe.detunings, k_parallel=k_par, band_shift=modes.shift[0],
+               band_decay_rate=modes.decay_rate[0])
     return out

@@ -18,6 +18,7 @@ from .units import Transition
 
 __all__ = ["spectrum_csv", "far_field_csv", "guided_csv", "scan_csv", "decay_csv", "field_map_csv",
            "read_amplitudes_csv", "bands_csv", "bands_map_csv", "finite_bands_csv",
+           "sheet_csv",
            "SPECTRUM_COLUMNS"]
 
 #: Columns of the spectrum file, with their units.
@@ -234,4 +235,22 @@ def finite_bands_csv(modes: Modes, placed: dict) -> str:
                    + [repr(float(placed["weight"][m])), int(placed["band"][m]),
                       repr(float(placed["shift"][m])), repr(float(placed["decay_rate"][m])),
                       repr(float(placed["path_distance"][m])), repr(float(placed["off_path"][m]))])
+    return buf.getvalue()
+
+
+def sheet_csv(sheet: dict, transition: Transition) -> str:
+    """The infinite array's specular response (physics.bands.probe_on_sheet) as CSV text."""
+    buf = io.StringIO()
+    kp = [float(v) for v in sheet["k_parallel"] / (2.0 * np.pi)]
+    buf.write(f"# infinite array, in-plane probe momentum ({kp[0]!r}, {kp[1]!r}) k0; powers per "
+              f"incident power; r, t projected on the probe polarisation\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["detuning_gamma0", "detuning_mhz", "r_real", "r_imag", "t_real", "t_imag",
+                "reflection", "transmission", "diffracted", "open_orders"])
+    for k, d in enumerate(sheet["detunings"]):
+        r, t = sheet["r"][k], sheet["t"][k]
+        w.writerow([repr(float(v)) for v in (d, transition.frequency_mhz(d), r.real, r.imag,
+                                              t.real, t.imag, sheet["R"][k], sheet["T"][k],
+                                              sheet["diffracted"][k])]
+                   + [int(sheet["orders"][k])])
     return buf.getvalue()

@@ -203,3 +203,18 @@ def test_bands_of_a_square_array(tmp_path):
 def test_bands_refuses_bad_input(args, words):
     res = run_cli(*args)
     assert res.returncode == 2 and words in res.stderr and "Traceback" not in res.stderr
+
+
+def test_scan_compares_with_the_infinite_array(tmp_path):
+    # The infinite sheet at normal incidence reflects fully at its collective
+    # resonance (E. Shahmoon et al., Phys. Rev. Lett. 118, 113601 (2017)).
+    res = run_cli("scan", "scenarios/mirror_square_16x16.json", "--infinite", "--points", "401",
+                  "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    assert "infinite array" in res.stdout
+    data = np.loadtxt(tmp_path / "sheet.csv", delimiter=",", skiprows=2)
+    assert data.shape == (401, 10)
+    np.testing.assert_allclose(data[:, 6] + data[:, 7] + data[:, 8], 1.0, atol=1e-12)
+    assert data[:, 6].max() > 0.99
+    res = run_cli("scan", "scenarios/subradiant_chain.json", "--infinite")
+    assert res.returncode == 2 and "--infinite: a chain is not a sheet" in res.stderr

@@ -197,3 +197,29 @@ def test_a_freshly_loaded_scenario_is_not_marked_modified(path):
     if st.lattice != "explicit":
         st.spacing = st.spacing * 1.01
         assert st.is_modified()
+
+
+def test_bands_are_computed_only_while_open_and_follow_the_array():
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st.solve()
+    assert st.bands is None  # closed: nothing computed
+    st.bands_visible = True
+    br = st.bands
+    assert br.lattice is not None and br.bands.shift.shape[1] == 1
+    assert br.placed is not None and len(br.placed["band"]) == 256
+    # Γ(k = 0) of a square lattice with in-plane dipoles is (3/4π)(λ0/a)² Γ0
+    # (E. Shahmoon et al., Phys. Rev. Lett. 118, 113601 (2017)); a = 0.75 λ0 here
+    assert br.bands.decay_rate[0, 0] == pytest.approx(3 / (4 * np.pi) / 0.75 ** 2, rel=1e-12)
+    st.bands_polarization = "all"
+    assert st.bands.bands.shift.shape[1] == 3 and st.bands.placed is None
+    st.apply_scenario(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
+    assert st.bands.lattice is None and "no infinite counterpart" in st.bands.note
+
+
+def test_probe_analysis_compares_with_the_infinite_array():
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st.solve()
+    sheet = st.analysis.sheet
+    assert sheet is not None and np.max(sheet["R"]) > 0.99  # the infinite sheet is a mirror
+    st.apply_scenario(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
+    assert st.analysis.sheet is None

@@ -743,6 +743,11 @@ class ExplorerState(param.Parameterized):
                 reach = float(np.hypot(kx[-1], ky[-1])) + bnd.K0
                 G = bnd.lattice_points(lat.reciprocal, reach)
                 centres = -G
+            planar = isinstance(lat, bnd.PlanarLattice)
+            check = bnd.ewald_check(lat, path.k[::12], pol) if planar else 0.0
+            notes.append("Lattice sums: closed form (polylogarithms)." if check == 0.0 else
+                         f"Lattice sums: Ewald; changing its splitting parameter moves H(k) by "
+                         f"{check:.0e} (relative).")
             return BandsResult(gen, "", lat, path, along, placed, fmap, centres,
                                tuple(bnd.lattice_notes(lat) + notes), vector)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:

@@ -622,6 +622,7 @@ class BandsView:
                 src.data = {k: [] for k in src.data}
             self.summary = br.note if br is not None else ""
             self.selection_text = ""
+            mp.visible = False
             return
         path, b = br.path, br.bands
         fu = st.frequency_label()
@@ -722,8 +723,7 @@ class BandsView:
         if k is None:
             self.marker.data = dict(s=[], w=[], g=[])
             self.map_marker.data = dict(x=[], y=[])
-            self.selection_text = ("Select a mode to see where it sits on the bands."
-                                   if br.placed is None else "")
+            self.selection_text = ""
             return
         pl, res, fu = br.placed, st.result, st.frequency_label()
         kvec = np.atleast_1d(pl["k"][k]) / (2 * np.pi)

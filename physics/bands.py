@@ -147,7 +147,8 @@ class Chain:
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.spacing) and 0.0 < self.spacing <= MAX_PERIOD):
-            raise ValueError(f"spacing: {self.spacing:g} λ0 is out of range; allowed (0, {MAX_PERIOD:g}] λ0")
+            raise ValueError(f"spacing: {self.spacing:g} λ0 is out of range; "
+                             f"allowed (0, {MAX_PERIOD:g}] λ0")
         if self.axis not in ("x", "y", "z"):
             raise ValueError(f"axis: {self.axis!r} is not allowed; allowed: x, y, z")
 
@@ -329,7 +330,8 @@ def _real_space_self(E: float) -> complex:
     ea = np.exp(a * a)
     one = 1.0 + 1j * erfi(a)  # 1 + erf(i a)
     b1 = -4.0 * E * ea / np.sqrt(np.pi) - 2j * K0 * one
-    b3 = ((4.0 * E ** 3 + 2.0 * E * K0 ** 2) * ea + 1j * np.sqrt(np.pi) * K0 ** 3 * one) / (3.0 * np.sqrt(np.pi))
+    b3 = (((4.0 * E ** 3 + 2.0 * E * K0 ** 2) * ea + 1j * np.sqrt(np.pi) * K0 ** 3 * one)
+          / (3.0 * np.sqrt(np.pi)))
     return complex((b1 + 2.0 * b3 / K0 ** 2) / (8.0 * np.pi))
 
 
@@ -416,7 +418,8 @@ def _dipoles(lat, dipole) -> np.ndarray:
     if d.ndim == 1:
         d = np.tile(d, (lat.n_basis, 1))
     if d.shape != (lat.n_basis, 3):
-        raise ValueError(f"dipole: needs one 3-vector or one per basis site ({lat.n_basis}); got shape {d.shape}")
+        raise ValueError(f"dipole: needs one 3-vector or one per basis site ({lat.n_basis}); "
+                         f"got shape {d.shape}")
     n = np.linalg.norm(d, axis=1)
     if np.any(n == 0):
         raise ValueError("dipole: a zero vector has no direction; allowed: any non-zero 3-vector")
@@ -615,7 +618,8 @@ def lattice_notes(lat: Chain | PlanarLattice) -> list[str]:
         else:
             notes.append("d ≥ λ0: several diffraction orders radiate even at k = 0.")
         return notes
-    G = np.linalg.norm(lattice_points(lat.reciprocal, 2.0 * np.max(np.linalg.norm(lat.reciprocal, axis=1))), axis=1)
+    reach = 2.0 * np.max(np.linalg.norm(lat.reciprocal, axis=1))
+    G = np.linalg.norm(lattice_points(lat.reciprocal, reach), axis=1)
     b_min = float(np.min(G[G > 0]))
     notes = [f"{lat.kind} lattice, {lat.n_basis} site(s) per cell, cell area {lat.area:.4g} λ0²."]
     if b_min > 2.0 * K0:
@@ -833,7 +837,8 @@ def specular_response(lat: PlanarLattice, detunings, dipole="x", *, direction=(0
     d = _dipoles(lat, dipole)
     drive = (np.conj(d) @ eps) * np.exp(1j * basis @ k_par)
     n = H.shape[0]
-    c = np.linalg.solve(H[None] - det[:, None, None] * np.eye(n)[None], -np.broadcast_to(drive, (len(det), n))[..., None])[..., 0]
+    lhs = H[None] - det[:, None, None] * np.eye(n)[None]
+    c = np.linalg.solve(lhs, -np.broadcast_to(drive, (len(det), n))[..., None])[..., 0]
     G = lattice_points(lat.reciprocal, 2.0 * K0)
     kz_in = K0 * n_hat[2]
     out = {"R": np.zeros(len(det)), "T": np.zeros(len(det)), "diffracted": np.zeros(len(det))}

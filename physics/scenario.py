@@ -159,7 +159,8 @@ class Scenario:
                                 "'radial' and 'tangential' vary from site to site")
         notes = []
         kinds = [dict(part)["kind"] for part in self.environment]
-        scale = [dict(part).get("scale", 1.0) for part in self.environment if dict(part)["kind"] == "free_space"]
+        scale = [dict(part).get("scale", 1.0) for part in self.environment
+                 if dict(part)["kind"] == "free_space"]
         if kinds != ["free_space"] or scale != [1.0]:
             notes.append("Bands are for emitters in free space only; this scenario's "
                          + ", ".join(k for k in kinds) + " environment is left out of them.")

@@ -26,6 +26,7 @@ from . import lattices
 from .cavity import CavityMode
 from .free_space import FreeSpace
 from .geometry import Emitters, polar_dipole
+from .imperfections import Imperfections
 from .hamiltonian import check_separation
 from .units import TRANSITIONS, Transition
 from .waveguide import Waveguide
@@ -47,7 +48,7 @@ __all__ = [
 
 FORMAT = "choir-scenario"
 #: Version written by this Choir; files up to it are read (older ones migrated).
-VERSION = 3
+VERSION = 4
 #: Largest scenario file read [bytes].
 MAX_FILE_BYTES = 20_000_000
 
@@ -65,7 +66,12 @@ def _v2_to_v3(doc: dict) -> dict:
     return dict(doc)
 
 
-MIGRATIONS: dict[int, Callable[[dict], dict]] = {1: _v1_to_v2, 2: _v2_to_v3}
+def _v3_to_v4(doc: dict) -> dict:
+    """Version 4 adds jitter, filling and realisation to the imperfections block."""
+    return dict(doc)
+
+
+MIGRATIONS: dict[int, Callable[[dict], dict]] = {1: _v1_to_v2, 2: _v2_to_v3, 3: _v3_to_v4}
 
 
 class ScenarioError(ValueError):
@@ -108,6 +114,7 @@ class Scenario:
     color_by: str = "participation_ratio"
     transition_preset: str | None = None
     probe: tuple | None = None  # (key, value) pairs of a physics.driving.Probe
+    imperfections: tuple = ()  # (key, value) pairs: jitter_lambda0 | jitter_nm, filling, realisation
 
     def probe_model(self):
         """The probe of this scenario (a default plane wave along +z when none is given)."""
@@ -130,8 +137,60 @@ class Scenario:
         return dict(self.geometry)["lattice"]
 
     def emitters(self) -> Emitters:
-        """Build the emitter arrangement described by this scenario."""
+        """The emitters of this scenario: its realisation of the imperfect array, if any."""
+        return self.realisation_emitters(self.realisation)
+
+    def clean_emitters(self) -> Emitters:
+        """The array without vacancies or jitter."""
         return _build_emitters(self)
+
+    @property
+    def realisation(self) -> int:
+        return int(dict(self.imperfections).get("realisation", 0))
+
+    def imperfections_model(self):
+        """The :class:`physics.imperfections.Imperfections` of this scenario, or None if perfect."""
+        imp = dict(self.imperfections)
+        if "jitter_nm" in imp:
+            jitter = tuple(float(v) / self.transition.wavelength_nm for v in imp["jitter_nm"])
+            jitter_field = "imperfections.jitter_nm"
+        else:
+            jitter = tuple(float(v) for v in imp.get("jitter_lambda0", (0.0, 0.0, 0.0)))
+            jitter_field = "imperfections.jitter_lambda0"
+        filling = float(imp.get("filling", 1.0))
+        if filling == 1.0 and not any(jitter):
+            return None
+        if self.seed is None:
+            raise ScenarioError("imperfections.seed", "required with jitter or vacancies (a whole "
+                                "number 0 to 4294967295), so that every realisation can be "
+                                "drawn again")
+        try:
+            return Imperfections(jitter, filling, self.seed)
+        except ValueError as exc:
+            field_name, _, msg = str(exc).partition(": ")
+            name = jitter_field if field_name == "jitter" else f"imperfections.{field_name}"
+            raise ScenarioError(name, msg) from None
+
+    def realisation_emitters(self, index: int) -> Emitters:
+        """Realisation ``index`` of this scenario's imperfect array (the clean array if perfect)."""
+        from .imperfections import realise
+
+        clean = _build_emitters(self)
+        imp = self.imperfections_model()
+        if imp is None:
+            return clean
+        try:
+            return realise(clean, imp, index)
+        except ValueError as exc:
+            field_name, _, msg = str(exc).partition(": ")
+            raise ScenarioError(field_name if "." in field_name else f"imperfections.{field_name}",
+                                msg) from None
+
+    def with_realisation(self, index: int) -> "Scenario":
+        """This scenario showing realisation ``index``."""
+        imp = dict(self.imperfections)
+        imp["realisation"] = int(index)
+        return replace(self, imperfections=tuple(sorted(imp.items())))
 
     def environment_model(self):
         """The environment object for :func:`physics.coupling_matrix` (a sum if several parts)."""
@@ -158,6 +217,9 @@ class Scenario:
             raise ScenarioError("dipole", "bands need the same dipole on every site; "
                                 "'radial' and 'tangential' vary from site to site")
         notes = []
+        if self.imperfections_model() is not None:
+            notes.append("Bands are those of the perfect lattice; this array has vacancies or "
+                         "jitter, so its modes are not placed on them.")
         kinds = [dict(part)["kind"] for part in self.environment]
         scale = [dict(part).get("scale", 1.0) for part in self.environment
                  if dict(part)["kind"] == "free_space"]
@@ -171,7 +233,8 @@ class Scenario:
         geo = (("lattice", "explicit"),
                ("positions", tuple(tuple(float(v) for v in p) for p in em.positions)))
         dip = (("per_emitter", tuple(tuple(complex(v) for v in d) for d in em.dipoles)),)
-        return replace(self, geometry=geo, dipole=dip)
+        # the list is the realised arrangement: imperfections must not act on it again
+        return replace(self, geometry=geo, dipole=dip, imperfections=())
 
 
 # ---------------------------------------------------------------- schema
@@ -241,7 +304,7 @@ def _explain(err) -> ScenarioError:
     if v in ("minItems", "maxItems"):
         lo, hi = s.get("minItems", 0), s.get("maxItems", "any number of")
         return ScenarioError(path, f"has {len(inst)} entries; allowed {lo} to {hi}")
-    if v in ("oneOf", "maxProperties"):
+    if v in ("oneOf", "maxProperties", "not"):
         return ScenarioError(path, _ONE_OF_HELP.get(path, "fields do not fit together"))
     return ScenarioError(path, err.message)
 
@@ -249,6 +312,7 @@ def _explain(err) -> ScenarioError:
 _ONE_OF_HELP = {
     "transition": "give either 'preset' or both 'wavelength_nm' and 'linewidth_mhz', not both",
     "dipole": "give exactly one of: 'preset'; 'theta_deg' with 'phi_deg'; 'vector'; 'per_emitter'",
+    "imperfections": "give the jitter either as 'jitter_lambda0' or as 'jitter_nm', not both",
 }
 
 
@@ -347,6 +411,9 @@ def from_dict(doc: Any) -> Scenario:
         name=doc.get("name", ""),
         description=doc.get("description", ""),
         seed=doc.get("imperfections", {}).get("seed"),
+        imperfections=tuple(sorted((k, tuple(float(x) for x in v) if isinstance(v, list) else v)
+                                   for k, v in doc.get("imperfections", {}).items()
+                                   if k != "seed")),
         selected_mode=analysis.get("selected_mode", 0),
         lens_na=float(analysis.get("lens_na", 0.5)),
         lens_axis=analysis.get("lens_axis", "+z"),
@@ -396,8 +463,10 @@ def to_dict(sc: Scenario) -> dict:
     doc.update({"transition": t, "geometry": geo, "dipole": dip,
                 "environment": [{k: list(v) if isinstance(v, tuple) else v for k, v in part}
                                 for part in sc.environment]})
-    if sc.seed is not None:
-        doc["imperfections"] = {"seed": sc.seed}
+    if sc.seed is not None or sc.imperfections:
+        imp: dict[str, Any] = {} if sc.seed is None else {"seed": sc.seed}
+        imp.update({k: list(v) if isinstance(v, tuple) else v for k, v in sc.imperfections})
+        doc["imperfections"] = imp
     if sc.probe is not None:
         doc["probe"] = {k: ([_pair(c) for c in v] if k == "polarization" and isinstance(v, tuple)
                             else list(v) if isinstance(v, tuple) else v) for k, v in sc.probe}

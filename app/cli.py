@@ -5,6 +5,7 @@ Exit codes: 0 success, 2 bad input (message on stderr), 1 unexpected failure.
 from __future__ import annotations
 
 import argparse
+import csv
 import os
 import sys
 from dataclasses import replace
@@ -479,6 +480,107 @@ def cmd_bands(args) -> int:
     return 0
 
 
+def _progress(done: int, total: int, seconds: float) -> None:
+    """A progress bar on stderr with the time remaining (a line per 10 % when not a terminal)."""
+    frac = done / total if total else 1.0
+    left = seconds * (1.0 - frac) / frac if frac > 0 else float("nan")
+    bar = "█" * int(30 * frac) + "·" * (30 - int(30 * frac))
+    text = (f"[{bar}] {100 * frac:5.1f} % {done}/{total} realisations · {seconds:.1f} s · "
+            f"~{left:.0f} s left")
+    if sys.stderr.isatty():
+        print("\r" + text, end="" if done < total else "\n", file=sys.stderr, flush=True)
+    elif int(10 * frac) != getattr(_progress, "last", -1) or done == total:
+        _progress.last = int(10 * frac)
+        print(text, file=sys.stderr, flush=True)
+
+
+def cmd_sweep(args) -> int:
+    from app import sweeps
+    from physics.ensembles import FIGURES, FigureRequest
+
+    sc = _load(args.scenario)
+    doc = scn.to_dict(sc)
+    imp = doc.setdefault("imperfections", {})
+    if args.jitter is not None:
+        vals = [v for v in args.jitter.split(",") if v.strip()]
+        try:
+            sig = [float(v) for v in vals]
+        except ValueError:
+            raise UsageError(f"--jitter: {args.jitter!r} is not one number or three x,y,z") from None
+        if len(sig) not in (1, 3):
+            raise UsageError(f"--jitter: give one value (all axes) or three x,y,z; got {len(sig)}")
+        imp.pop("jitter_nm", None)
+        imp["jitter_lambda0"] = sig * 3 if len(sig) == 1 else sig
+    if args.filling is not None:
+        imp["filling"] = args.filling
+    seed = args.seed if args.seed is not None else (sc.seed if sc.seed is not None else 0)
+    if not 0 <= seed <= 2 ** 32 - 1:
+        raise UsageError(f"--seed: {seed} is out of range; allowed 0 to 4294967295")
+    if args.plot not in FIGURES:
+        raise UsageError(f"--plot: {args.plot!r} is not a figure; allowed: {', '.join(FIGURES)}")
+    try:
+        request = FigureRequest(args.mode, args.detuning, not args.no_spectra)
+    except ValueError as exc:
+        raise UsageError(f"--{str(exc).split(':')[0]}: {str(exc).split(': ', 1)[-1]}") from None
+    if args.plot not in request.names():
+        raise UsageError(f"--plot: {args.plot} needs " + ("--mode" if "mode" in args.plot
+                                                          else "--detuning"))
+    try:
+        axes = tuple(sweeps.parse_axis(v) for v in args.vary)
+        plan = sweeps.Plan(doc, axes, args.realisations, request, seed)
+    except sweeps.SweepError as exc:
+        raise UsageError(str(exc)) from None
+    if args.fit == "power" and len(plan.axes) != 1:
+        raise UsageError("--fit: a power-law fit needs exactly one --vary parameter")
+    if args.workers is not None and not 1 <= args.workers <= 256:
+        raise UsageError(f"--workers: {args.workers} is out of range; allowed 1 to 256")
+    out = _out_dir(args, "-sweep")
+    try:
+        report = sweeps.run_plan(plan, out, scheduler=args.scheduler, workers=args.workers,
+                                 resume=args.resume, progress=_progress)
+    except sweeps.SweepError as exc:
+        raise UsageError(str(exc)) from None
+    except KeyboardInterrupt:
+        print(f"\nchoir: interrupted; finished realisations are saved in {out}; run the same "
+              f"command with --resume to continue", file=sys.stderr)
+        return 130
+    except OSError as exc:
+        raise UsageError(f"--scheduler: cannot reach {args.scheduler}: {exc}") from None
+    _, rows = sweeps.read_results(out)
+    summary = sweeps.summary_rows(plan, rows)
+    cols = ["point"] + [a.label for a in plan.axes] + ["figure", "n", "mean", "sem", "std",
+                                                       "p05", "p25", "median", "p75", "p95"]
+    with open(out / "summary.csv", "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(cols)
+        for s in summary:
+            w.writerow([s[c] if isinstance(s[c], (int, str)) else repr(float(s[c])) for c in cols])
+    fit = sweeps.scaling_fit(plan, summary, args.plot) if args.fit == "power" else None
+    sweeps.plot_png(plan, summary, args.plot, out / "plot.png", fit,
+                    out / sweeps.SPECTRA_FILE if request.spectrum else None)
+    lines = [f"Choir sweep — {sc.name or Path(args.scenario).name}",
+             f"  {plan.n_points} point(s) × {plan.realisations} realisation(s), seed {seed}; "
+             f"ran on {report.where or 'nothing (all done before)'}",
+             f"  {report.already} realisation(s) found done, {report.computed} computed in "
+             f"{report.tasks} task(s), {report.seconds:.1f} s"
+             + (f"; {report.failed} refused (see the note column)" if report.failed else "")]
+    pts = [s for s in summary if s["figure"] == args.plot]
+    for s in pts[:20]:
+        where = ", ".join(f"{a.label} = {s[a.label]:g}" for a in plan.axes) or "ensemble"
+        lines.append(f"  {where}: {args.plot} = {s['mean']:.5g} ± {s['sem']:.2g} "
+                     f"(median {s['median']:.5g}, 5–95 % {s['p05']:.4g} … {s['p95']:.4g})")
+    if len(pts) > 20:
+        lines.append(f"  … {len(pts) - 20} more points in summary.csv")
+    if fit is not None:
+        lines.append(f"  power-law fit: {args.plot} ∝ {plan.axes[0].label}^"
+                     f"({fit['exponent']:.4f} ± {fit['exponent_error']:.4f})")
+    lines += [f"  {MODEL_LIMITS}",
+              f"  wrote {out / 'results.csv'}, {out / 'summary.csv'}, {out / 'plot.png'}"
+              + (f", {out / sweeps.SPECTRA_FILE}" if request.spectrum else "")]
+    print("\n".join(lines))
+    return 0
+
+
 def cmd_serve(args) -> int:
     sc = _load(args.scenario) if args.scenario else None
     if not 1 <= args.port <= 65535:
@@ -613,6 +715,32 @@ def build_parser() -> argparse.ArgumentParser:
                    help="also place the finite array's modes on the bands (finite_modes.csv)")
     b.add_argument("--out", help="output folder (default: <scenario name>-bands)")
     b.set_defaults(func=cmd_bands)
+
+    w = sub.add_parser("sweep", help="ensembles of imperfect arrays and parameter sweeps, on "
+                       "Dask: tidy CSV, summary and a PNG plot")
+    w.add_argument("scenario")
+    w.add_argument("--vary", action="append", default=[],
+                   help="PATH[,PATH]=VALUES, e.g. geometry.spacing=0.2:0.8:7, "
+                        "geometry.nx,geometry.ny=4,8,16 or imperfections.filling=log:0.5:1:5 "
+                        "(repeat for a second parameter)")
+    w.add_argument("--realisations", type=int, default=1, help="random realisations per point")
+    w.add_argument("--seed", type=int, help="seed of the realisations (default: the scenario's, or 0)")
+    w.add_argument("--jitter", help="position jitter σ [λ0]: one value or three x,y,z")
+    w.add_argument("--filling", type=float, help="probability that a site holds an emitter (0, 1]")
+    w.add_argument("--mode", type=int, help="also record the mode with this index (0 = most subradiant)")
+    w.add_argument("--detuning", type=float, help="also record the probe signal at this detuning [Γ0]")
+    w.add_argument("--no-spectra", dest="no_spectra", action="store_true",
+                   help="do not keep every mode's shift and rate (spectra.csv)")
+    w.add_argument("--plot", default="most_subradiant_rate", help="figure drawn in plot.png")
+    w.add_argument("--fit", choices=["none", "power"], default="none",
+                   help="power-law fit of the plotted figure against the swept parameter")
+    w.add_argument("--scheduler", default="local",
+                   help="'local' (default: a local Dask cluster), 'inline' (this process) or a "
+                        "scheduler address tcp://host:port")
+    w.add_argument("--workers", type=int, help="local cluster: worker processes (default: all cores)")
+    w.add_argument("--out", help="output folder (default: <scenario name>-sweep)")
+    w.add_argument("--resume", action="store_true", help="continue an interrupted sweep in --out")
+    w.set_defaults(func=cmd_sweep)
 
     e = sub.add_parser("serve", help="open the explorer in the browser (localhost by default)")
     e.add_argument("scenario", nargs="?", help="scenario file to start from (.json)")

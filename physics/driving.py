@@ -326,8 +326,9 @@ def _guide(environment):
     return guides[0]
 
 
-def probe_scan(em: Emitters, environment, probe: Probe) -> dict[str, np.ndarray]:
-    """Everything a detuning scan measures, as arrays over ``probe.detunings``.
+def probe_scan(em: Emitters, environment, probe: Probe, detunings=None) -> dict[str, np.ndarray]:
+    """Everything a detuning scan measures, as arrays over ``probe.detunings``
+    (or over ``detunings`` [Γ0] when given, e.g. a single detuning).
 
     Always: "detunings" [Γ0], "extinction" and "scattered" power [Γ0] (equal in
     this model), "amplitudes" (D, N).  Plane wave: "cross_section" [λ0²]
@@ -343,7 +344,7 @@ def probe_scan(em: Emitters, environment, probe: Probe) -> dict[str, np.ndarray]
         drive = guide.probe(em, probe.from_end)
     else:
         drive = drive_from_field(em, probe.incident_field(em.positions))
-    d = probe.detunings
+    d = probe.detunings if detunings is None else np.atleast_1d(np.asarray(detunings, float))
     c = steady_states(H, drive, d)
     out = {"detunings": d, "amplitudes": c, "extinction": extinguished_power(drive, c),
            "scattered": scattered_power(H, c)}

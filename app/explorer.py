@@ -10,6 +10,7 @@ import html
 import io
 import os
 import re
+import threading
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any, Callable
@@ -23,7 +24,8 @@ from physics.lattices import ring_radius
 from physics.waveguide import guided_figures
 
 from .state import NEAR_FIELD_WARN, ExplorerState
-from .views import ArrayView, BandsView, FarFieldView, ProbeView, SpectrumView, mode_card_html
+from .views import (ArrayView, BandsView, FarFieldView, ProbeView, SpectrumView, SweepView,
+                    mode_card_html)
 
 __all__ = ["build_explorer", "explorer", "ServerRunner", "MODEL_NOTE", "serve"]
 
@@ -54,6 +56,17 @@ class ServerRunner:
 
     def __init__(self, doc) -> None:
         self.doc = doc
+
+    def submit_long(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
+        """A long job (a sweep) on its own thread, so the pool stays free for quick ones."""
+        def work():
+            try:
+                value = job()
+            except Exception as exc:  # reported to the user by `done`
+                value = exc
+            self.doc.add_next_tick_callback(lambda: done(value))
+
+        threading.Thread(target=work, daemon=True, name="choir-sweep").start()
 
     def submit(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
         def finished(fut):
@@ -112,6 +125,12 @@ _LABELS = {
     "probe_detuning_min": "Scan from Δ [Γ0]", "probe_detuning_max": "Scan to Δ [Γ0]",
     "decay_initial": "Decay starts from", "decay_t_max": "Decay curve length [1/Γ0]",
     "map_plane": "Field-map plane",
+    "jitter_x": "Jitter σ along x [λ0]", "jitter_y": "Jitter σ along y [λ0]",
+    "jitter_z": "Jitter σ along z [λ0]", "filling": "Filling (share of occupied sites)",
+    "realisation": "Realisation shown", "bands_polarization": "Dipoles in the bands",
+    "sweep_vary": "Vary", "sweep_from": "From", "sweep_to": "To", "sweep_points": "Values",
+    "sweep_realisations": "Realisations per value", "sweep_figure": "Figure",
+    "sweep_fit": "Log axes and a power-law fit",
 }
 
 
@@ -158,7 +177,8 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
                             "theta_deg", "phi_deg", "lens_na", "free_space_scale", "wg_forward",
                             "wg_backward", "wg_loss", "wg_k", "cav_g", "cav_kappa",
                             "cav_detuning", "probe_theta_deg", "probe_phi_deg", "probe_waist",
-                            "probe_detuning_min", "probe_detuning_max", "decay_t_max")}
+                            "probe_detuning_min", "probe_detuning_max", "decay_t_max",
+                            "jitter_x", "jitter_y", "jitter_z", "filling")}
     lattice = _select(state, "lattice")
     disk_lattice = _select(state, "disk_lattice")
     chain_axis = _select(state, "chain_axis", pn.widgets.RadioButtonGroup)
@@ -325,12 +345,33 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
     undo.on_click(lambda e: state.runner.on_loop(state.undo))
     state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
 
+    realisation = pn.widgets.IntInput.from_param(state.param.realisation, label=_LABELS["realisation"],
+                                                 sizing_mode="stretch_width")
+    redraw = pn.widgets.Button(label="Draw another realisation", sizing_mode="stretch_width")
+    redraw.on_click(lambda e: state.runner.on_loop(state.draw_again))
+    imperfect_info = pn.pane.HTML("", styles={"font-size": "12px", "color": "#444"},
+                                  sizing_mode="stretch_width")
+    state.param.watch(lambda *_: setattr(imperfect_info, "object",
+                                         html.escape(state.imperfection_text())), "result")
+    imperfections = pn.Card(
+        sliders["jitter_x"], sliders["jitter_y"], sliders["jitter_z"], sliders["filling"],
+        realisation, redraw, imperfect_info,
+        pn.pane.HTML("<span style='font-size:11px;color:#555'>Vacancies: each site is filled "
+                     "with the probability set here; jitter: Gaussian displacements of each "
+                     "emitter. A realisation is fixed by the seed saved in the scenario and its "
+                     "number, so a colleague sees the same one. Drawing in the array view "
+                     "keeps the realised positions and sets these back to a perfect array."
+                     "</span>"),
+        title="Imperfections: vacancies and jitter", collapsed=True,
+        sizing_mode="stretch_width", margin=(4, 0))
+
     def card(title, *items):
         return pn.Card(*items, title=title, sizing_mode="stretch_width", collapsed=False,
                        margin=(4, 4))
 
     column = pn.Column(
-        card("Array", lattice, *geometry_widgets.values(), explicit_note, nm, undo),
+        card("Array", lattice, *geometry_widgets.values(), explicit_note, nm, undo,
+             imperfections),
         card("Dipoles and environment", dipole, angles, environment, *env_groups.values(),
              env_info),
         card("Transition and units", transition, custom, tr_info, units, units_note),
@@ -359,6 +400,7 @@ def _controls(state: ExplorerState) -> tuple[pn.Column, dict]:
         width=330, sizing_mode="stretch_height", scroll=True,
     )
     widgets = dict(sliders, lattice=lattice, dipole=dipole, mode=mode, download=download,
+                   redraw=redraw, realisation=realisation,
                    upload=upload, undo=undo, spectrum=spectrum, transition=transition,
                    units=units, color_by=color_by, lens_axis=lens_axis)
     return column, widgets
@@ -437,6 +479,62 @@ def _bands_card(state: ExplorerState) -> tuple[pn.Card, BandsView]:
     return card, view
 
 
+def _sweep_card(state: ExplorerState) -> tuple[pn.Card, SweepView]:
+    """Ensembles and sweeps: inputs, run/cancel, progress, results."""
+    view = SweepView(state)
+    run = pn.widgets.Button(label="Run", color="primary", width=110)
+    stop = pn.widgets.Button(label="Cancel", width=110, disabled=True)
+    run.on_click(lambda e: state.runner.on_loop(state.run_sweep))
+    stop.on_click(lambda e: state.cancel_sweep())
+    bar = pn.indicators.Progress(value=0, max=100, sizing_mode="stretch_width", height=18,
+                                 bar_color="primary")
+    status = pn.pane.HTML("", styles={"font-size": "12px", "color": "#333"},
+                          sizing_mode="stretch_width")
+
+    def show(*_):
+        bar.value = int(round(100 * state.sweep_progress))
+        run.disabled = state.sweep_running
+        stop.disabled = not state.sweep_running
+        status.object = ("running… (the explorer stays usable; Cancel keeps what is done)"
+                         if state.sweep_running else html.escape(view.summary))
+
+    state.param.watch(show, ["sweep_progress", "sweep_running", "sweep"])
+    download = pn.widgets.FileDownload(
+        callback=lambda: io.StringIO((Path(state.sweep.folder) / "results.csv").read_text()
+                                     if state.sweep is not None else ""),
+        filename="choir-sweep-results.csv", label="Download results (.csv)", width=200)
+    rng = pn.Row(pn.widgets.FloatInput.from_param(state.param.sweep_from, label="From",
+                                                  width=110),
+                 pn.widgets.FloatInput.from_param(state.param.sweep_to, label="To", width=110),
+                 pn.widgets.IntInput.from_param(state.param.sweep_points, label="Values",
+                                                width=90))
+    state.param.watch(lambda e: setattr(rng, "visible", e.new != "nothing (one ensemble)"),
+                      "sweep_vary")
+    rng.visible = state.sweep_vary != "nothing (one ensemble)"
+    inputs = pn.Column(
+        pn.Row(pn.widgets.Select.from_param(state.param.sweep_vary, label="Vary", width=280),
+               rng,
+               pn.widgets.IntInput.from_param(state.param.sweep_realisations,
+                                              label=_LABELS["sweep_realisations"], width=160),
+               pn.widgets.Select.from_param(state.param.sweep_figure, label="Figure", width=280)),
+        pn.Row(pn.widgets.Checkbox.from_param(state.param.sweep_fit, label=_LABELS["sweep_fit"],
+                                              width=240, margin=(12, 10)),
+               run, stop, download),
+        sizing_mode="stretch_width")
+    explain = pn.pane.HTML(
+        "<span style='font-size:11px;color:#555'>Each value of the parameter is solved for the "
+        "chosen number of random realisations of the array's imperfections (set them under "
+        "Array → Imperfections; without imperfections every realisation is the same array). "
+        "Realisation r uses the same random numbers at every value, so curves are smooth. "
+        "Runs here are limited to about a minute and a half of computing; the command shown "
+        "runs the same sweep headless on every core or on a Dask cluster, and can resume."
+        "</span>", sizing_mode="stretch_width")
+    card = pn.Card(inputs, bar, status, pn.Row(*view.figures, sizing_mode="stretch_width"),
+                   explain, title="Ensembles and sweeps", collapsed=True,
+                   sizing_mode="stretch_width", name="choir-sweep-card")
+    return card, view
+
+
 def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None):
     """One explorer page (a Panel layout) with its own session state."""
     doc = pn.state.curdoc
@@ -462,6 +560,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         sizing_mode="stretch_width")
 
     bands_row, bands = _bands_card(state)
+    sweep_row, sweep = _sweep_card(state)
     sidebar, widgets = _controls(state)
     card = pn.pane.HTML(mode_card_html(state), sizing_mode="stretch_width")
     state.param.watch(lambda *_: setattr(card, "object", mode_card_html(state)),
@@ -523,12 +622,13 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.Row(pn.Column(far.figure, ff_note, sizing_mode="stretch_width"),
                pn.Column(card, sizing_mode="stretch_width", max_width=420),
                sizing_mode="stretch_width"),
-        probe_row, bands_row, model, sizing_mode="stretch_width")
+        probe_row, bands_row, sweep_row, model, sizing_mode="stretch_width")
     page = pn.Column(header, pn.Row(sidebar, main, sizing_mode="stretch_both"),
                      sizing_mode="stretch_both")
     page.explorer_state = state  # tests and notebooks reach the session state here
     page.explorer_views = {"spectrum": spectrum, "array": array, "far": far, "probe": probe,
-                           "bands": bands, "bands_card": bands_row,
+                           "bands": bands, "bands_card": bands_row, "sweep": sweep,
+                           "sweep_card": sweep_row,
                            "widgets": widgets,
                            "spinner": spinner, "error": error, "caution": caution}
 

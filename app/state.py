@@ -10,7 +10,10 @@ slow old solve never overwrites a newer one.
 from __future__ import annotations
 
 import math
+import tempfile
+import threading
 from dataclasses import dataclass, replace
+from pathlib import Path
 from typing import Any, Callable
 
 import numpy as np
@@ -58,6 +61,22 @@ BANDS_PATH_POINTS = 240
 BANDS_MAP_PIXELS = 61
 BANDS_PLACE_LIMIT = 2500
 
+#: Parameters the explorer's sweep panel can vary: label → scenario paths (None: no sweep).
+SWEEP_PARAMETERS = {
+    "nothing (one ensemble)": None,
+    "spacing a [λ0]": ("geometry.spacing",),
+    "array size nx = ny": ("geometry.nx", "geometry.ny"),
+    "emitters N (chain, ring)": ("geometry.n",),
+    "jitter σ along x and y [λ0]": ("imperfections.jitter_lambda0.0",
+                                     "imperfections.jitter_lambda0.1"),
+    "jitter σ along z [λ0]": ("imperfections.jitter_lambda0.2",),
+    "filling": ("imperfections.filling",),
+    "dipole θ [deg] (polar-angle dipoles)": ("dipole.theta_deg",),
+}
+#: Largest run the explorer starts (estimated seconds on one core); bigger runs are
+#: pointed to `choir sweep`, which can use every core or a cluster.
+SWEEP_LIMIT_S = 90.0
+
 #: Most undo steps kept.
 UNDO_DEPTH = 50
 
@@ -66,7 +85,8 @@ _GEOMETRY_PARAMS = ["lattice", "n", "nx", "ny", "nz", "spacing", "spacing_y", "r
                     "phi_deg", "dipole_vector", "dipoles_explicit", "environment",
                     "free_space_scale", "wg_forward", "wg_backward", "wg_loss", "wg_k", "wg_axis",
                     "cav_g", "cav_kappa", "cav_detuning", "cav_axis", "cav_polarization",
-                    "cav_waist", "cav_standing_wave"]
+                    "cav_waist", "cav_standing_wave", "jitter_x", "jitter_y", "jitter_z",
+                    "filling", "realisation"]
 #: Environments the explorer edits; "as loaded from file" keeps a file's own list.
 ENVIRONMENTS = ["free space", "free space + waveguide", "waveguide", "free space + cavity",
                 "cavity", "waveguide + cavity", "free space + waveguide + cavity",
@@ -138,6 +158,20 @@ class BandsResult:
     vector: bool = False      # all three polarisations
 
 
+@dataclass(frozen=True)
+class SweepResult:
+    """An ensemble or sweep run from the explorer (see app.sweeps)."""
+
+    plan: Any             # app.sweeps.Plan
+    summary: list         # app.sweeps.summary_rows
+    folder: str           # where results.csv, spectra.csv live
+    report: Any           # app.sweeps.RunReport
+    histogram: tuple | None  # (edges, counts) of decay rates at the last point, or None
+    fit: dict | None      # power-law fit, or None
+    figure: str
+    command: str          # the same run as a `choir sweep` command
+
+
 class SyncRunner:
     """Runs jobs at once, in the caller's thread (tests, notebooks without a server)."""
 
@@ -147,6 +181,10 @@ class SyncRunner:
     def on_loop(self, fn: Callable[[], None]) -> None:
         """Run ``fn`` where plot models may change (here: at once)."""
         fn()
+
+    def submit_long(self, job: Callable[[], Any], done: Callable[[Any], None]) -> None:
+        """A long job (a sweep): here, at once, like any other."""
+        done(job())
 
 
 def _far_field_image(em: Emitters, c: np.ndarray, pixels: int) -> np.ndarray:
@@ -283,11 +321,44 @@ class ExplorerState(param.Parameterized):
     bands_visible = param.Boolean(False, doc="Bands are computed while their view is open "
                                   "(no unit)")
 
+    jitter_x = param.Number(0.0, bounds=(0.0, 1.0), softbounds=(0.0, 0.1), step=0.001,
+                            doc="Position jitter, standard deviation along x [λ0]")
+    jitter_y = param.Number(0.0, bounds=(0.0, 1.0), softbounds=(0.0, 0.1), step=0.001,
+                            doc="Position jitter, standard deviation along y [λ0]")
+    jitter_z = param.Number(0.0, bounds=(0.0, 1.0), softbounds=(0.0, 0.2), step=0.001,
+                            doc="Position jitter, standard deviation along z [λ0]")
+    filling = param.Number(1.0, bounds=(0.01, 1.0), step=0.01,
+                           doc="Probability that a site holds an emitter (no unit)")
+    realisation = param.Integer(0, bounds=(0, 2 ** 32 - 1),
+                                doc="Which random realisation of the imperfect array is shown "
+                                    "(count)")
+
+    sweep_vary = param.Selector(objects=list(SWEEP_PARAMETERS), default="nothing (one ensemble)",
+                                doc="Sweep: the parameter varied (no unit)")
+    sweep_from = param.Number(0.2, bounds=(-1e4, 1e4), doc="Sweep: first value [unit of the "
+                              "parameter varied]")
+    sweep_to = param.Number(0.8, bounds=(-1e4, 1e4), doc="Sweep: last value [unit of the "
+                            "parameter varied]")
+    sweep_points = param.Integer(5, bounds=(2, 25), doc="Sweep: number of values (count)")
+    sweep_realisations = param.Integer(20, bounds=(1, 1000),
+                                       doc="Sweep: random realisations per value (count)")
+    sweep_figure = param.Selector(
+        objects={"most subradiant decay rate": "most_subradiant_rate",
+                 "most radiant decay rate": "most_radiant_rate",
+                 "shift of the most subradiant mode": "most_subradiant_shift",
+                 "emitters left after vacancies": "n_emitters",
+                 "probe signal at Δ = 0 (the probe panel's)": "probe_signal"},
+        default="most_subradiant_rate", doc="Sweep: the figure plotted (no unit)")
+    sweep_fit = param.Boolean(False, doc="Sweep: log axes and a power-law fit (no unit)")
+
     # --- outputs ------------------------------------------------------------
     result = param.Parameter(None, doc="Latest solved arrangement, a Result (no unit)")
     mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")
     analysis = param.Parameter(None, doc="Probe scan, field map and decay, an Analysis (no unit)")
     bands = param.Parameter(None, doc="Bands of the infinite lattice, a BandsResult (no unit)")
+    sweep = param.Parameter(None, doc="Last ensemble or sweep, a SweepResult (no unit)")
+    sweep_progress = param.Number(0.0, bounds=(0.0, 1.0), doc="Share of the sweep done (no unit)")
+    sweep_running = param.Boolean(False, doc="True while a sweep runs (no unit)")
     message = param.String("", doc="Last refusal or error, shown to the user (text, no unit)")
     busy = param.Boolean(False, doc="True while a computation runs (no unit)")
     undo_depth = param.Integer(0, bounds=(0, UNDO_DEPTH), doc="Edits that can be undone (count)")
@@ -299,6 +370,7 @@ class ExplorerState(param.Parameterized):
         self._mode_generation = 0
         self._analysis_generation = 0
         self._bands_generation = 0
+        self._sweep_cancel = threading.Event()
         self._undo: list[scn.Scenario] = []
         self._applying = False
         self._loaded: scn.Scenario | None = None
@@ -321,7 +393,8 @@ class ExplorerState(param.Parameterized):
     def _document(self, positions: np.ndarray | None = None,
                   dipoles: np.ndarray | None = None) -> dict:
         """Scenario document of the inputs; ``positions``/``dipoles`` override the geometry."""
-        lat = "explicit" if positions is not None else self.lattice
+        edited = positions is not None
+        lat = "explicit" if edited else self.lattice
         if positions is None:
             positions = self.positions
         if dipoles is None:
@@ -369,8 +442,17 @@ class ExplorerState(param.Parameterized):
         doc.update(transition=tr, geometry=geo, dipole=dip, environment=self._environment_parts(),
                    analysis={"lens_na": self.lens_na, "lens_axis": self.lens_axis},
                    display={"units": self.units, "color_by": self.color_by})
+        # a drawn edit (``positions`` given) is the realised arrangement: no more imperfections
+        imperfect = not edited and (self.filling < 1.0
+                                    or any((self.jitter_x, self.jitter_y, self.jitter_z)))
+        if imperfect and self._seed is None:
+            self._seed = int(np.random.SeedSequence().entropy % 2 ** 32)  # kept for the session
         if self._seed is not None:
             doc["imperfections"] = {"seed": self._seed}
+        if imperfect:
+            doc["imperfections"].update(
+                jitter_lambda0=[self.jitter_x, self.jitter_y, self.jitter_z],
+                filling=self.filling, realisation=self.realisation)
         doc["probe"] = self._probe_block()
         return doc
 
@@ -504,6 +586,14 @@ class ExplorerState(param.Parameterized):
                    lens_axis=sc.lens_axis, scenario_name=sc.name, description=sc.description,
                    selected_mode=sc.selected_mode, message="")
         self._seed = sc.seed
+        try:
+            imp = sc.imperfections_model()
+        except scn.ScenarioError:
+            imp = None
+        jx, jy, jz = imp.jitter if imp is not None else (0.0, 0.0, 0.0)
+        upd.update(jitter_x=jx, jitter_y=jy, jitter_z=jz,
+                   filling=imp.filling if imp is not None else 1.0,
+                   realisation=sc.realisation)
         self._loaded = sc
         self._applying = True
         try:
@@ -759,6 +849,142 @@ class ExplorerState(param.Parameterized):
         elif br.generation == self._bands_generation:
             self.bands = br
 
+    # ------------------------------------------------------------ ensembles and sweeps
+    def sweep_plan(self):
+        """The sweep described by the inputs, as an app.sweeps.Plan (raises ValueError)."""
+        from physics.ensembles import FigureRequest
+
+        from . import sweeps
+
+        doc = self._document()
+        paths = SWEEP_PARAMETERS[self.sweep_vary]
+        imp = doc.setdefault("imperfections", {})
+        if self._seed is None:
+            self._seed = int(np.random.SeedSequence().entropy % 2 ** 32)
+        imp["seed"] = self._seed
+        axes = ()
+        if paths is not None:
+            if paths[0].startswith("imperfections.jitter"):
+                imp.setdefault("jitter_lambda0", [self.jitter_x, self.jitter_y, self.jitter_z])
+            if paths[0] == "dipole.theta_deg" and "theta_deg" not in doc["dipole"]:
+                raise sweeps.SweepError("sweep: θ can be varied only for 'polar angles' dipoles")
+            key = paths[0].split(".")[1]
+            if key in ("nx", "n") and key not in doc["geometry"]:
+                raise sweeps.SweepError(f"sweep: this array type has no '{key}'")
+            lo, hi = self.sweep_from, self.sweep_to
+            if self.sweep_fit and lo > 0 and hi > 0:  # even steps on the log axes of a fit
+                values = np.geomspace(lo, hi, self.sweep_points)
+            else:
+                values = np.linspace(lo, hi, self.sweep_points)
+            if key in ("nx", "n"):  # counts: whole numbers, each once
+                values = np.unique(np.round(values).astype(int))
+            axes = (sweeps.Axis(paths, tuple(float(v) for v in values)),)
+        request = FigureRequest(detuning=0.0 if self.sweep_figure == "probe_signal" else None)
+        return sweeps.Plan(doc, axes, self.sweep_realisations, request, self._seed)
+
+    def sweep_command(self, plan) -> str:
+        """The same run as a command line (scenario file: the downloaded one)."""
+        parts = ["choir sweep scenario.json", f"--realisations {plan.realisations}",
+                 f"--seed {plan.seed}"]
+        for a in plan.axes:
+            parts.append(f"--vary {','.join(a.paths)}=" + ",".join(repr(v) for v in a.values))
+        if plan.request.detuning is not None:
+            parts.append(f"--detuning {plan.request.detuning:g}")
+        parts.append(f"--plot {self.sweep_figure}")
+        if self.sweep_fit and plan.axes:
+            parts.append("--fit power")
+        return " ".join(parts)
+
+    def run_sweep(self) -> None:
+        """Start the ensemble or sweep in the background (refused above SWEEP_LIMIT_S)."""
+        from . import sweeps
+
+        if self.sweep_running:
+            return
+        try:
+            plan = self.sweep_plan()
+            for p in range(plan.n_points):
+                plan.scenario_at(p)
+            cost = sweeps.estimate_seconds(plan)
+        except (ValueError, scn.ScenarioError) as exc:
+            self.message = f"Sweep not started — {exc}"
+            return
+        if cost > SWEEP_LIMIT_S:
+            self.message = (f"Sweep not started — it would take about {cost / 60:.0f} min on one "
+                            f"core here (the explorer runs up to {SWEEP_LIMIT_S:.0f} s). Run it "
+                            f"headless, on every core or a cluster: {self.sweep_command(plan)}")
+            return
+        self.message = ""
+        self._sweep_cancel = threading.Event()
+        cancel, figure, fit = self._sweep_cancel, self.sweep_figure, self.sweep_fit
+        folder = tempfile.mkdtemp(prefix="choir-sweep-")
+        command = self.sweep_command(plan)
+        self.sweep_running, self.sweep_progress = True, 0.0
+
+        def progress(done, total, seconds):
+            self.runner.on_loop(lambda: setattr(self, "sweep_progress", done / total))
+
+        def job():
+            try:
+                report = sweeps.run_plan(plan, folder, scheduler="inline", progress=progress,
+                                         cancel=cancel)
+                return self._sweep_outcome(plan, folder, report, figure, fit, command)
+            except (ValueError, MemoryError, np.linalg.LinAlgError, OSError) as exc:
+                return exc
+
+        self.runner.submit_long(job, self._accept_sweep)
+
+    @staticmethod
+    def _sweep_outcome(plan, folder, report, figure, fit, command) -> SweepResult:
+        from physics.ensembles import log_histogram
+
+        from . import sweeps
+
+        _, rows = sweeps.read_results(folder)
+        summary = sweeps.summary_rows(plan, rows)
+        hist = None
+        spectra = Path(folder) / sweeps.SPECTRA_FILE
+        if spectra.exists() and rows:
+            data = np.loadtxt(spectra, delimiter=",", skiprows=1, ndmin=2)
+            last = int(max(r["point"] for r in rows))
+            if len(data):
+                hist = log_histogram(data[data[:, 0] == last, 4])
+        power = None
+        if fit and len(plan.axes) == 1:
+            try:
+                power = sweeps.scaling_fit(plan, summary, figure)
+            except ValueError:
+                power = None
+        return SweepResult(plan, summary, folder, report, hist, power, figure, command)
+
+    def _accept_sweep(self, out) -> None:
+        self.sweep_running = False
+        if isinstance(out, Exception):
+            self.message = f"Sweep stopped — {out}"
+            return
+        self.sweep_progress = 1.0 if not out.report.cancelled else self.sweep_progress
+        self.sweep = out
+
+    def cancel_sweep(self) -> None:
+        """Stop the running sweep after the realisations in progress (what is done is kept)."""
+        self._sweep_cancel.set()
+
+    def imperfection_text(self) -> str:
+        """What the array view shows of an imperfect array, in words ("" when perfect)."""
+        res = self.result
+        if res is None:
+            return ""
+        try:
+            imp = res.scenario.imperfections_model()
+        except scn.ScenarioError:
+            return ""
+        if imp is None:
+            return ""
+        sites = res.scenario.clean_emitters().n
+        return (f"Realisation {res.scenario.realisation} (seed {imp.seed}): {res.emitters.n} of "
+                f"{sites} sites filled; jitter σ = ({imp.jitter[0]:.3g}, {imp.jitter[1]:.3g}, "
+                f"{imp.jitter[2]:.3g}) λ0 along x, y, z.")
+
     # ------------------------------------------------------------ derived
     def cautions(self) -> list[str]:
         """Warnings about leaving the model's range of validity for the current result."""
@@ -807,7 +1033,8 @@ class ExplorerState(param.Parameterized):
         """
         positions = np.asarray(positions, dtype=float).reshape(-1, 3)
         origin = np.asarray(origin, dtype=int)
-        upd: dict[str, Any] = {"lattice": "explicit", "positions": positions}
+        upd: dict[str, Any] = {"lattice": "explicit", "positions": positions, "jitter_x": 0.0,
+                               "jitter_y": 0.0, "jitter_z": 0.0, "filling": 1.0}
         if self.dipole == "per emitter" and self.result is not None:
             old = self.result.emitters.dipoles
             upd["dipoles_explicit"] = np.where((origin >= 0)[:, None],
@@ -828,6 +1055,10 @@ class ExplorerState(param.Parameterized):
             self._applying = False
         self.undo_depth = len(self._undo)
         self.solve()
+
+    def draw_again(self) -> None:
+        """Show the next random realisation of the imperfect array."""
+        self.realisation = min(self.realisation + 1, 2 ** 32 - 1)
 
     def undo(self) -> None:
         """Return to the geometry before the last edit."""

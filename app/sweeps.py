@@ -45,7 +45,7 @@ import numpy as np
 from physics import scenario as scn
 from physics.ensembles import FigureRequest, power_law_fit, realisation_figures, summarise
 
-__all__ = ["Axis", "Plan", "parse_axis", "run_plan", "RunReport", "summary_rows",
+__all__ = ["Axis", "Plan", "parse_axis", "run_plan", "RunReport", "summary_rows", "estimate_seconds",
            "MAX_REALISATIONS", "MAX_POINTS", "SweepError"]
 
 #: Largest number of realisations per point and of points per sweep.
@@ -72,7 +72,8 @@ class Axis:
 
     @property
     def label(self) -> str:
-        return ",".join(self.paths)
+        """Column name: the paths joined by "+" (a comma would split the CSV column)."""
+        return "+".join(self.paths)
 
 
 def _number(text: str, flag: str) -> float:
@@ -93,7 +94,8 @@ def parse_axis(text: str, flag: str = "--vary") -> Axis:
                          f"geometry.spacing=0.2:0.8:7")
     lhs, rhs = text.split("=", 1)
     paths = tuple(p.strip() for p in lhs.split(",") if p.strip())
-    if not paths or any(not all(part.isidentifier() for part in p.split(".")) for p in paths):
+    if not paths or any(not all(part.isidentifier() or part.isdigit() for part in p.split("."))
+                        for p in paths):
         raise SweepError(f"{flag}: {lhs!r} is not a dotted scenario path such as geometry.spacing")
     parts = rhs.split(":")
     if parts[0] == "log" and len(parts) == 4:
@@ -243,6 +245,12 @@ def _cost_estimate(sc: scn.Scenario) -> float:
     """Rough seconds per realisation on one core: eigenvalues ∝ N³ (measured here: 0.11 s at N = 400)."""
     n = sc.clean_emitters().n
     return 2e-3 + 1.8e-9 * n ** 3
+
+
+def estimate_seconds(plan: Plan) -> float:
+    """Rough single-core time of the whole plan [s]."""
+    return sum(_cost_estimate(plan.scenario_at(p)) for p in range(plan.n_points)) \
+        * plan.realisations
 
 
 def _tasks(plan: Plan, missing: dict[int, list[int]], workers: int) -> list[tuple[int, list[int]]]:

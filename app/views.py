@@ -12,7 +12,8 @@ import html
 
 import numpy as np
 from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, FixedTicker, HoverTool,
-                          Label, LinearColorMapper, PointDrawTool, Range1d, Span, TapTool)
+                          Label, LinearColorMapper, PointDrawTool, Range1d, Span, TapTool,
+                          Whisker)
 from bokeh.palettes import Cividis256, Inferno256
 from bokeh.plotting import figure
 
@@ -22,7 +23,8 @@ from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
 from .state import DEFECTIVE_NOTE, ExplorerState
 
-__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "BandsView", "mode_card_html",
+__all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "BandsView", "SweepView",
+           "mode_card_html",
            "PHASE_PALETTE",
            "FIGURE_LABELS"]
 
@@ -749,6 +751,104 @@ class BandsView:
         mode = int(self.finite.data["mode"][new[0]])
         self.finite.selected.indices = []
         self.state.selected_mode = mode
+
+
+class SweepView:
+    """An ensemble or sweep: the chosen figure's mean ± standard error against the
+    parameter (log axes and a power-law fit on request), and the histogram of all
+    decay rates of the realisations at the last value."""
+
+    def __init__(self, state: ExplorerState) -> None:
+        self.state = state
+        self.points = ColumnDataSource(dict(x=[], y=[], lo=[], hi=[], n=[], txt=[]),
+                                       name="choir-sweep-points")
+        self.fit = ColumnDataSource(dict(x=[], y=[]), name="choir-sweep-fit")
+        self.hist = ColumnDataSource(dict(left=[], right=[], top=[]), name="choir-sweep-hist")
+        lin, hist = self._figures("linear", "choir-sweep-plot")
+        log, _ = self._figures("log", "choir-sweep-plot-log")
+        log.visible = False
+        self.figures = (lin, log, hist)
+        self.summary = ""
+        state.param.watch(self.update, ["sweep", "units", "transition", "wavelength_nm",
+                                        "linewidth_mhz"])
+        self.update()
+
+    def _figures(self, scale: str, name: str):
+        tools = "pan,wheel_zoom,box_zoom,reset,save"
+        p = figure(height=300, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+                   title="Ensemble", name=name, x_axis_type=scale, y_axis_type=scale)
+        r = p.scatter("x", "y", source=self.points, size=8, color="#4527a0")
+        p.add_layout(Whisker(source=self.points, base="x", lower="lo", upper="hi",
+                             line_color="#4527a0"))
+        p.line("x", "y", source=self.fit, color="#ef6c00", line_width=2)
+        p.add_tools(HoverTool(renderers=[r], tooltips=[("value", "@x"), ("mean", "@txt"),
+                                                       ("realisations", "@n")]))
+        h = figure(height=300, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+                   title="Decay rates of all modes", name="choir-sweep-hist-plot",
+                   x_axis_type="log")
+        h.quad(left="left", right="right", top="top", bottom=0, source=self.hist,
+               fill_color="#7e57c2", line_color="#4527a0")
+        h.yaxis.axis_label = "number of modes"
+        return p, h
+
+    def update(self, *_) -> None:
+        st, sw = self.state, self.state.sweep
+        lin, log, h = self.figures
+        if sw is None:
+            return
+        lin.visible, log.visible = sw.fit is None, sw.fit is not None
+        p = log if sw.fit is not None else lin
+        plan, name = sw.plan, sw.figure
+        pts = [s for s in sw.summary if s["figure"] == name]
+        is_rate = name not in ("n_emitters", "probe_signal")
+        conv = (lambda v: np.asarray(st.to_frequency(np.asarray(v, float)))) if is_rate \
+            else (lambda v: np.asarray(v, float))
+        unit = st.frequency_label() if is_rate else ("emitters" if name == "n_emitters" else "")
+        if plan.axes:
+            x = np.array([s[plan.axes[0].label] for s in pts])
+            p.xaxis.axis_label = _SWEEP_AXIS.get(plan.axes[0].label, plan.axes[0].label)
+        else:
+            x = np.zeros(len(pts))
+            p.xaxis.axis_label = "(one ensemble)"
+        y = conv([s["mean"] for s in pts])
+        e = conv([s["sem"] for s in pts])
+        self.points.data = dict(x=x, y=y, lo=y - e, hi=y + e, n=[s["n"] for s in pts],
+                                txt=[f"{v:.4g} ± {d:.2g} {unit}" for v, d in zip(y, e)])
+        label = dict((v, k) for k, v in st.param.sweep_figure.objects.items()).get(name, name)
+        p.yaxis.axis_label = f"{label} [{unit}]" if unit else label
+        p.title.text = (f"{label}: mean ± standard error of {plan.realisations} realisation(s)"
+                        if plan.realisations > 1 else f"{label}: one realisation per value")
+        if sw.fit is not None and len(x) > 1:
+            xx = np.geomspace(x.min(), x.max(), 60)
+            self.fit.data = dict(x=xx, y=conv(sw.fit["prefactor"] * xx ** sw.fit["exponent"]))
+        else:
+            self.fit.data = dict(x=[], y=[])
+        if sw.histogram is not None:
+            edges, counts = sw.histogram
+            ed = conv(edges)
+            self.hist.data = dict(left=ed[:-1], right=ed[1:], top=counts)
+            h.xaxis.axis_label = f"decay rate [{st.frequency_label()}]"
+            where = ""
+            if plan.axes:
+                where = f" at {p.xaxis.axis_label} = {x[-1]:.4g}"
+            h.title.text = f"Decay rates of all modes, all realisations{where}"
+        else:
+            self.hist.data = dict(left=[], right=[], top=[])
+        rep = sw.report
+        self.summary = (f"{rep.computed} realisation(s) in {rep.seconds:.1f} s"
+                        + (" — cancelled; what finished is shown" if rep.cancelled else "")
+                        + (f"; {rep.failed} refused" if rep.failed else "")
+                        + (f". Power-law fit: ∝ x^({sw.fit['exponent']:.3f} ± "
+                           f"{sw.fit['exponent_error']:.3f})" if sw.fit is not None else "")
+                        + f". Same run from the command line: {sw.command}")
+
+
+_SWEEP_AXIS = {"geometry.spacing": "spacing a [λ0]", "geometry.nx+geometry.ny": "nx = ny",
+               "geometry.n": "emitters N",
+               "imperfections.jitter_lambda0.0+imperfections.jitter_lambda0.1":
+                   "jitter σ along x and y [λ0]",
+               "imperfections.jitter_lambda0.2": "jitter σ along z [λ0]",
+               "imperfections.filling": "filling", "dipole.theta_deg": "dipole θ [deg]"}
 
 
 def mode_card_html(state: ExplorerState) -> str:

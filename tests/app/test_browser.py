@@ -359,3 +359,36 @@ def test_bands_open_on_demand_and_a_finite_mode_is_clickable(tab):
     tab.page.mouse.move(5, 5)  # no tooltip over the picture
     time.sleep(0.3)
     tab.page.screenshot(path=str(ARTIFACTS / "explorer-bands.png"), full_page=True)
+
+
+def test_imperfect_array_redraw_and_an_ensemble_run(tab, tmp_path):
+    from physics import scenario as scn
+
+    doc = scn.to_dict(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    doc["geometry"].update(nx=8, ny=8)
+    doc["analysis"]["selected_mode"] = 0
+    doc["imperfections"] = {"seed": 21, "filling": 0.85, "jitter_lambda0": [0.02, 0.02, 0.04]}
+    path = tmp_path / "imperfect.json"
+    path.write_text(scn.dumps(scn.from_dict(doc)))
+    tab.page.locator("input[type=file]").set_input_files(str(path))
+    n0 = scn.from_dict(doc).emitters().n
+    tab.wait_for_points(lambda k: k == n0)
+    tab.page.get_by_text("Imperfections: vacancies and jitter").click()
+    tab.page.get_by_text("Draw another realisation").click()
+    deadline = time.time() + 30
+    while "Realisation 1 (seed 21)" not in tab.text() and time.time() < deadline:
+        time.sleep(0.3)
+    assert "Realisation 1 (seed 21)" in tab.text()
+    tab.page.get_by_text("Ensembles and sweeps").click()
+    tab.page.get_by_role("button", name="Run").click()
+    n = tab.wait_for("const s = doc.get_model_by_name('choir-sweep-points');"
+                     "return s && s.data.x.length")
+    assert n == 1
+    assert tab.wait_for("const h = doc.get_model_by_name('choir-sweep-hist');"
+                        "return h && h.data.top.length > 5")
+    deadline = time.time() + 30
+    while "Same run from the command line: choir sweep" not in tab.text() and time.time() < deadline:
+        time.sleep(0.3)
+    assert "Same run from the command line: choir sweep" in tab.text()
+    tab.page.mouse.move(5, 5)
+    tab.page.screenshot(path=str(ARTIFACTS / "explorer-sweep.png"), full_page=True)

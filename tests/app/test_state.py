@@ -223,3 +223,38 @@ def test_probe_analysis_compares_with_the_infinite_array():
     assert sheet is not None and np.max(sheet["R"]) > 0.99  # the infinite sheet is a mirror
     st.apply_scenario(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
     assert st.analysis.sheet is None
+
+
+def test_imperfections_redraw_export_and_edit():
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st.solve()
+    st.filling, st.jitter_z = 0.8, 0.02
+    first = st.result.emitters
+    assert first.n < 256 and "sites filled" in st.imperfection_text()
+    st.draw_again()
+    assert st.realisation == 1 and st.result.emitters != first
+    # the exported file shows exactly this realisation to a colleague
+    other = ExplorerState(scn.loads(scn.dumps(st.scenario_for_export())))
+    other.solve()
+    assert other.result.emitters == st.result.emitters and other.filling == 0.8
+    # a drawn edit keeps the realised positions and makes the array perfect again
+    pos = np.array(st.result.emitters.positions)
+    st.edit_positions(pos[:-1], np.arange(len(pos) - 1))
+    assert st.filling == 1.0 and st.jitter_z == 0.0
+    np.testing.assert_array_equal(st.result.emitters.positions, pos[:-1])
+
+
+def test_sweep_from_the_explorer_and_its_command():
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "subradiant_chain.json"))
+    st.solve()
+    st.param.update(sweep_vary="emitters N (chain, ring)", sweep_from=20, sweep_to=160,
+                    sweep_points=4, sweep_realisations=1, sweep_fit=True)
+    st.run_sweep()
+    assert st.message == "" and not st.sweep_running and st.sweep_progress == 1.0
+    # most subradiant rate of a chain ∝ N^−3 (Phys. Rev. X 7, 031024 (2017)); N = 20…160
+    # is still short of the asymptote, so the tolerance is 0.2
+    assert st.sweep.fit["exponent"] == pytest.approx(-3.0, abs=0.2)
+    assert "--vary geometry.n=20.0,40.0,80.0,160.0" in st.sweep.command
+    st.param.update(sweep_realisations=1000, sweep_from=500, sweep_to=2000)
+    st.run_sweep()
+    assert "Sweep not started — it would take about" in st.message and "choir sweep" in st.message

@@ -258,3 +258,26 @@ def test_sweep_from_the_explorer_and_its_command():
     st.param.update(sweep_realisations=1000, sweep_from=500, sweep_to=2000)
     st.run_sweep()
     assert "Sweep not started — it would take about" in st.message and "choir sweep" in st.message
+
+
+def test_a_sweep_can_be_cancelled_and_keeps_what_finished():
+    from app.state import SyncRunner
+
+    class CancelAfterFirstTask(SyncRunner):
+        state = None
+
+        def on_loop(self, fn):
+            fn()
+            self.state.cancel_sweep()  # the user presses Cancel after the first progress step
+
+    runner = CancelAfterFirstTask()
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "subradiant_chain.json"), runner=runner)
+    runner.state = st
+    st.solve()
+    st.param.update(sweep_vary="spacing a [λ0]", sweep_from=0.2, sweep_to=0.4, sweep_points=6,
+                    sweep_realisations=1)
+    st.run_sweep()
+    rep = st.sweep.report
+    assert rep.cancelled and 1 <= rep.computed < 6 and not st.sweep_running
+    assert len([s for s in st.sweep.summary if s["figure"] == "most_subradiant_rate"]) == \
+        rep.computed

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import argparse
 import csv
+import io
 import os
 import sys
 from dataclasses import replace
@@ -108,8 +109,94 @@ def cmd_validate(args) -> int:
     return 0
 
 
+#: Largest symmetry block (or array without symmetry) that `choir solve` diagonalises
+#: with every eigenvector; beyond it, --modes K gives the chosen few.
+FULL_SOLVE_BLOCK_LIMIT = 5000
+
+
+def _largest_block(sc) -> tuple[int, int]:
+    from physics.symmetry import find_symmetry
+
+    em, env = sc.emitters(), sc.environment_model()
+    group = find_symmetry(em, tuple(getattr(env, "symmetry_operations", ())))
+    return em.n, (em.n if group is None else max(len(sec.reps) for sec in group.sectors()))
+
+
+def _bar(fraction: float, text: str) -> None:
+    bar = "█" * int(30 * fraction) + "·" * (30 - int(30 * fraction))
+    end = "\n" if fraction >= 1.0 else ""
+    if sys.stderr.isatty():
+        print(f"\r[{bar}] {100 * fraction:5.1f} % {text:40s}", end=end, file=sys.stderr, flush=True)
+    else:
+        print(f"[{bar}] {100 * fraction:5.1f} % {text}", file=sys.stderr, flush=True)
+
+
+def cmd_solve_chosen(args, sc) -> int:
+    """choir solve --modes K: a few chosen modes of a (large) array."""
+    from physics import large
+
+    tr = sc.transition
+    em, env = sc.emitters(), sc.environment_model()
+    target = None
+    if args.target is not None:
+        try:
+            w, g = (float(v) for v in args.target.split(","))
+        except ValueError:
+            raise UsageError(f"--target: {args.target!r} is not 'shift,rate' in Γ0 "
+                             f"(e.g. 0.5,0.01)") from None
+        target = complex(w, -g / 2.0)
+    if args.which == "near" and target is None:
+        raise UsageError("--target: --which near needs --target shift,rate [Γ0]")
+    try:
+        ch = large.chosen_modes(em, env, args.modes, args.which, target, progress=_bar)
+    except large.MemoryRequestError as exc:
+        raise UsageError(f"--modes: {exc}") from None
+    out = _out_dir(args, "-results")
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["rank", "shift_gamma0", "decay_rate_gamma0", "lifetime_per_gamma0", "shift_mhz",
+                "decay_rate_mhz", "lifetime_ns", "participation_ratio", "residual_gamma0",
+                "symmetry"])
+    pr = 1.0 / np.sum(np.abs(ch.vectors) ** 4, axis=0)
+    for r in range(len(ch.eigenvalues)):
+        g, sft = float(ch.decay_rates[r]), float(ch.shifts[r])
+        life = 1.0 / g if g > 0 else float("inf")
+        w.writerow([r, repr(sft), repr(g), repr(life), repr(float(tr.frequency_mhz(sft))),
+                    repr(float(tr.frequency_mhz(g))), repr(float(tr.time_ns(life))),
+                    repr(float(pr[r])), repr(float(ch.residual[r])),
+                    ch.sector_names[ch.sector[r]]])
+    (out / "spectrum.csv").write_text(buf.getvalue(), encoding="utf-8")
+    np.savez_compressed(out / "modes.npz", eigenvalues=ch.eigenvalues, vectors=ch.vectors,
+                        positions_lambda0=em.positions, dipoles=em.dipoles,
+                        wavelength_nm=tr.wavelength_nm, linewidth_mhz=tr.linewidth_mhz)
+    what = {"subradiant": "most subradiant", "radiant": "most radiant",
+            "near": f"nearest ω = {target.real:g} Γ0, Γ = {-2 * target.imag:g} Γ0"
+            if target is not None else ""}[args.which]
+    lines = [f"Choir — {sc.name or Path(args.scenario).name}",
+             f"  array:        {_geometry_text(sc, em.n)}",
+             f"  environment:  {env.describe()}",
+             f"  {len(ch.eigenvalues)} {what} modes ({ch.method}; largest residual "
+             f"‖Hc − λc‖ = {ch.residual.max():.1e} Γ0):"]
+    for r in range(min(len(ch.eigenvalues), 10)):
+        lines.append(f"    {r}: shift {ch.shifts[r]:+.5g} Γ0, {_fmt_rate(ch.decay_rates[r], tr)}, "
+                     f"participation ratio {pr[r]:.4g} ({ch.sector_names[ch.sector[r]]})")
+    if len(ch.eigenvalues) > 10:
+        lines.append(f"    … {len(ch.eigenvalues) - 10} more in spectrum.csv")
+    lines += [f"  {MODEL_LIMITS}", f"  wrote {out / 'spectrum.csv'}, {out / 'modes.npz'}"]
+    print("\n".join(lines))
+    return 0
+
+
 def cmd_solve(args) -> int:
     sc = _load(args.scenario)
+    if args.modes is not None:
+        return cmd_solve_chosen(args, sc)
+    n, block = _largest_block(sc)
+    if block > FULL_SOLVE_BLOCK_LIMIT:
+        raise UsageError(
+            f"geometry: {n} emitters with a largest symmetry block of {block} is beyond the full "
+            f"solve (every eigenvector; allowed blocks up to {FULL_SOLVE_BLOCK_LIMIT}); ask for "
+            f"the modes you need with --modes K [--which subradiant|radiant|near]")
     tr = sc.transition
     sol = solve_scenario(sc, guided_points=801)
     em, env, modes, defective = sol.emitters, sol.environment, sol.modes, sol.defective
@@ -612,6 +699,10 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("solve", help="solve a scenario: summary, spectrum CSV, modes NPZ, far field")
     s.add_argument("scenario", help="scenario file (.json)")
     s.add_argument("--out", help="output folder (default: <scenario name>-results)")
+    s.add_argument("--modes", type=int, help="only K chosen modes (large arrays): see --which")
+    s.add_argument("--which", choices=["subradiant", "radiant", "near"], default="subradiant",
+                   help="with --modes: the most subradiant, most radiant, or nearest --target")
+    s.add_argument("--target", help="with --which near: shift,rate [Γ0], e.g. 0.5,0.01")
     s.set_defaults(func=cmd_solve)
 
     v = sub.add_parser("validate", help="check a scenario file and report what it describes")

@@ -218,3 +218,30 @@ def test_scan_compares_with_the_infinite_array(tmp_path):
     assert data[:, 6].max() > 0.99
     res = run_cli("scan", "scenarios/subradiant_chain.json", "--infinite")
     assert res.returncode == 2 and "--infinite: a chain is not a sheet" in res.stderr
+
+
+def test_solve_chosen_modes_of_a_large_array(tmp_path):
+    # The few-mode path agrees with the dense solve on the five most subradiant
+    # modes (common practice, no source; see tests/physics/test_large.py).
+    res = run_cli("solve", "scenarios/mirror_square_16x16.json", "--modes", "5",
+                  "--out", str(tmp_path))
+    assert res.returncode == 0, res.stderr
+    assert "5 most subradiant modes (dense blocks" in res.stdout and "100.0 %" in res.stderr
+    got = np.loadtxt(tmp_path / "spectrum.csv", delimiter=",", skiprows=1, usecols=2)
+    sc = scn.load(ROOT / "scenarios" / "mirror_square_16x16.json")
+    from physics.modes import solve_modes
+
+    ref = solve_modes(sc.emitters(), sc.environment_model(), use_symmetry=False).decay_rates[:5]
+    np.testing.assert_allclose(got, ref, rtol=1e-9)
+
+
+def test_full_solve_of_a_huge_unsymmetric_array_points_to_modes(tmp_path):
+    d = scn.to_dict(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    d["geometry"].update(nx=80, ny=80)
+    d["analysis"]["selected_mode"] = 0
+    d["imperfections"] = {"seed": 2, "jitter_lambda0": [0.01, 0.01, 0.01]}
+    (tmp_path / "big.json").write_text(scn.dumps(scn.from_dict(d)))
+    res = run_cli("solve", str(tmp_path / "big.json"), "--out", str(tmp_path / "o"))
+    assert res.returncode == 2 and "--modes K" in res.stderr and "6400 emitters" in res.stderr
+    res = run_cli("solve", str(tmp_path / "big.json"), "--modes", "2", "--which", "near")
+    assert res.returncode == 2 and "--target: --which near needs" in res.stderr

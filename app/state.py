@@ -272,7 +272,8 @@ class ExplorerState(param.Parameterized):
     color_by = param.Selector(objects={"participation ratio": "participation_ratio",
                                        "Petermann factor": "petermann",
                                        "collective shift": "shift",
-                                       "decay rate (log)": "decay_rate"},
+                                       "decay rate (log)": "decay_rate",
+                                       "symmetry sector": "symmetry"},
                               default="participation_ratio", doc="Mode figure for the "
                               "spectrum colours (no unit)")
     selected_mode = param.Integer(0, bounds=(0, 9999),

@@ -14,7 +14,7 @@ import numpy as np
 from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, FixedTicker, HoverTool,
                           Label, LinearColorMapper, PointDrawTool, Range1d, Span, TapTool,
                           Whisker)
-from bokeh.palettes import Cividis256, Inferno256
+from bokeh.palettes import Category10, Cividis256, Inferno256
 from bokeh.plotting import figure
 
 from physics.environment import parts_of
@@ -34,6 +34,7 @@ FIGURE_LABELS = {
     "petermann": "Petermann factor (1 = orthogonal modes)",
     "shift": "collective shift",
     "decay_rate": "log10 of decay rate / Γ0",
+    "symmetry": "symmetry sector (hover a point for its parities)",
 }
 
 #: Decades shown by the logarithmic far-field colour scale.
@@ -114,7 +115,8 @@ class SpectrumView:
         y = st.to_frequency(np.maximum(rates, RATE_FLOOR))
         life = st.to_time(m.lifetimes)
         fig = {"participation_ratio": m.participation_ratio, "petermann": m.petermann,
-               "shift": x, "decay_rate": np.log10(np.maximum(rates, RATE_FLOOR))}[st.color_by]
+               "shift": x, "decay_rate": np.log10(np.maximum(rates, RATE_FLOOR)),
+               "symmetry": m.sector.astype(float)}[st.color_by]
         rate_txt = [(_fmt(v, fu) if r > RATE_FLOOR else f"≤ {RATE_FLOOR:g} Γ0 (round-off)")
                     for v, r in zip(st.to_frequency(rates), rates)]
         self.source.data = dict(
@@ -122,10 +124,15 @@ class SpectrumView:
             rate=rate_txt, life=[_fmt(v, tu) for v in life], pr=m.participation_ratio,
             pk=m.petermann, tag=[radiance_label(r) for r in rates],
             sym=[m.sector_names[s] for s in m.sector])
-        lo, hi = float(np.nanmin(fig)), float(np.nanmax(fig))
-        if hi - lo < 1e-12:
-            hi = lo + 1.0
-        self.mapper.update(low=lo, high=hi)
+        if st.color_by == "symmetry":  # one colour per sector
+            k = len(m.sector_names)
+            self.mapper.update(palette=list(Category10[10][: max(3, k)]) if k <= 10 else Cividis256,
+                               low=-0.5, high=max(3, k) - 0.5)
+        else:
+            lo, hi = float(np.nanmin(fig)), float(np.nanmax(fig))
+            if hi - lo < 1e-12:
+                hi = lo + 1.0
+            self.mapper.update(palette=Cividis256, low=lo, high=hi)
         unit = f" [{fu}]" if st.color_by == "shift" else ""
         self.colorbar.title = FIGURE_LABELS[st.color_by] + unit
         lab = "Γ/2π [MHz]" if st.units == "lab" else "Γ [Γ0]"

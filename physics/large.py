@@ -39,6 +39,7 @@ import scipy.sparse.linalg
 
 from .geometry import Emitters
 from .hamiltonian import Environment, coupling_matrix
+from .modes import map_blocks
 from .symmetry import find_symmetry
 
 __all__ = ["spectrum", "chosen_modes", "ChosenModes", "memory_needed", "free_memory",
@@ -93,18 +94,26 @@ def spectrum(em: Emitters, environment: Environment, *, use_symmetry: bool = Tru
              ) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
     """All eigenvalues ω − iΓ/2 [Γ0], without eigenvectors, by ascending decay rate.
 
+    Symmetry blocks run on parallel threads (see :func:`physics.modes.map_blocks`);
+    ``progress(fraction_of_blocks)`` is called as each block finishes (its
+    share, 1/number of blocks, each time).
+
     Returns (eigenvalues, sector index of each, sector names).
     """
     H, group, secs = _blocks(em, environment, use_symmetry)
     _check_memory(em.n, max(em.n if s is None else len(s.reps) for s, _ in secs))
-    ws, labels = [], []
-    for k, (sec, _) in enumerate(secs):
-        block = H if sec is None else group.block(H, sec)
-        ws.append(scipy.linalg.eigvals(block, overwrite_a=sec is not None, check_finite=False))
-        labels.append(np.full(ws[-1].size, k))
+    blocks = [H if sec is None else group.block(H, sec) for sec, _ in secs]
+    del H  # only the blocks are needed now
+
+    def eigvals(block):
+        out = np.linalg.eigvals(block)  # releases the GIL: blocks run in parallel
         if progress is not None:
-            progress((k + 1) / len(secs))
-    w, lab = np.concatenate(ws), np.concatenate(labels)
+            progress(1.0 / len(blocks))
+        return out
+
+    ws = map_blocks(eigvals, blocks)
+    w = np.concatenate(ws)
+    lab = np.concatenate([np.full(v.size, k) for k, v in enumerate(ws)])
     order = np.lexsort((w.real, -w.imag))
     return w[order], lab[order], tuple(name for _, name in secs)
 
@@ -187,15 +196,17 @@ def chosen_modes(em: Emitters, environment: Environment, k: int = 20, which: str
     say = progress or (lambda f, t: None)
     rng = np.random.default_rng(12345)  # start vectors only; results do not depend on it
     cand_w, cand_sec = [], []
-    blocks = []
     method = ("dense blocks" if largest <= DENSE_BLOCK_LIMIT
               else "shift-invert Arnoldi" if which == "near" else "Arnoldi")
+    blocks = [H if sec is None else group.block(H, sec) for sec, _ in secs]
+    small = [b.shape[0] <= DENSE_BLOCK_LIMIT for b in blocks]
+    dense = iter(map_blocks(np.linalg.eigvals, [b for b, ok in zip(blocks, small) if ok]))
+    say(0.5 * sum(small) / len(secs), "eigenvalues of the symmetry blocks")
     for s, (sec, name) in enumerate(secs):
-        block = H if sec is None else group.block(H, sec)
-        blocks.append(block)
+        block = blocks[s]
         nb = block.shape[0]
-        if nb <= DENSE_BLOCK_LIMIT:
-            w = scipy.linalg.eigvals(block, check_finite=False)
+        if small[s]:
+            w = next(dense)
         else:
             m = min(nb - 2, max(2 * int(k), 20))
             if which == "near":  # shift-invert: one LU of (block − σ), then Arnoldi

@@ -1,7 +1,9 @@
 """Collective modes: eigen-decomposition of the effective Hamiltonian and figures per mode."""
 from __future__ import annotations
 
+import os
 import warnings
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from functools import cached_property
 
@@ -137,10 +139,14 @@ class Modes:
         A. E. Siegman, Phys. Rev. A 39, 1253 (1989).
         """
         # near an exceptional point the left vectors are huge: K overflows to inf
+        l, c = self.left_vectors, self.vectors
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-            ll = np.sum(np.abs(self.left_vectors) ** 2, axis=0)
-            rr = np.sum(np.abs(self.vectors) ** 2, axis=0)
-            lr = np.abs(np.sum(self.left_vectors.conj() * self.vectors, axis=0)) ** 2
+            # column sums on the real and imaginary views: no N×N temporaries
+            dot = lambda a, b: np.einsum("ij,ij->j", a, b)  # noqa: E731
+            ll = dot(l.real, l.real) + dot(l.imag, l.imag)
+            rr = dot(c.real, c.real) + dot(c.imag, c.imag)
+            lr = ((dot(l.real, c.real) + dot(l.imag, c.imag)) ** 2
+                  + (dot(l.real, c.imag) - dot(l.imag, c.real)) ** 2)
             k = ll * rr / lr
             mean = np.bincount(self.cluster, weights=k) / np.bincount(self.cluster)
         return mean[self.cluster]
@@ -171,7 +177,7 @@ def _degenerate_clusters(w: np.ndarray, tol: float) -> np.ndarray:
 
 def _diagonalise(H: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Eigenvalues, right vectors (orthonormal in degenerate spaces), left vectors = rows of V⁻¹."""
-    w, vr = scipy.linalg.eig(H, right=True, left=False, check_finite=False)
+    w, vr = np.linalg.eig(H)  # numpy's LAPACK call releases the GIL (parallel blocks)
     scale = max(1.0, float(np.max(np.abs(w)))) if w.size else 1.0
     cluster = _degenerate_clusters(w, DEGENERACY_TOL * scale)
     sizes = np.bincount(cluster)
@@ -191,6 +197,29 @@ def _diagonalise(H: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         with np.errstate(divide="ignore", invalid="ignore"):
             vl = vl / overlap.conj()
     return w, vr, vl
+
+
+#: Symmetry blocks are diagonalised on parallel threads (one BLAS thread each) when
+#: the work is at least this many emitters; below, thread start-up costs more.
+PARALLEL_BLOCKS_FROM = 600
+
+
+def map_blocks(fn, blocks: list) -> list:
+    """``[fn(b) for b in blocks]``, on one thread per core for large problems.
+
+    numpy's LAPACK calls release the GIL (scipy.linalg's do not), and for blocks
+    of a few hundred to a few thousand
+    one BLAS thread per block on its own core beats all cores on one block at a
+    time (measured in bench/bench_speed.py).  BLAS is held to one thread only
+    while the blocks run.
+    """
+    cores = os.cpu_count() or 1
+    if len(blocks) < 2 or cores < 2 or sum(b.shape[0] for b in blocks) < PARALLEL_BLOCKS_FROM:
+        return [fn(b) for b in blocks]
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(1), ThreadPoolExecutor(min(cores, len(blocks))) as pool:
+        return list(pool.map(fn, blocks))
 
 
 def modes_from_matrix(H: np.ndarray, symmetry: SymmetryGroup | None = None) -> Modes:
@@ -224,20 +253,28 @@ def modes_from_matrix(H: np.ndarray, symmetry: SymmetryGroup | None = None) -> M
         w, vr, vl = _diagonalise(H)
         sector = np.zeros(w.size, dtype=int)
         names: tuple[str, ...] = ("no symmetry used",)
+        order = np.lexsort((w.real, -w.imag))
+        w, vr, vl, sector = w[order], vr[:, order], vl[:, order], sector[order]
     else:
-        parts, names_list = [], []
-        for k, sec in enumerate(symmetry.sectors()):
-            ws, vs, ls = _diagonalise(symmetry.block(H, sec))
-            parts.append((ws, symmetry.lift(vs, sec), symmetry.lift(ls, sec),
-                          np.full(ws.size, k)))
-            names_list.append(symmetry.labels(sec.parities))
+        secs = symmetry.sectors()
+        parts = map_blocks(_diagonalise, [symmetry.block(H, sec) for sec in secs])
+        names = tuple(symmetry.labels(sec.parities) for sec in secs)
         w = np.concatenate([p[0] for p in parts])
-        vr = np.concatenate([p[1] for p in parts], axis=1)
-        vl = np.concatenate([p[2] for p in parts], axis=1)
-        sector = np.concatenate([p[3] for p in parts])
-        names = tuple(names_list)
-    order = np.lexsort((w.real, -w.imag))
-    w, vr, vl, sector = w[order], vr[:, order], vl[:, order], sector[order]
+        sector = np.concatenate([np.full(p[0].size, k) for k, p in enumerate(parts)])
+        order = np.lexsort((w.real, -w.imag))
+        where = np.empty_like(order)
+        where[order] = np.arange(order.size)
+        # lift each sector's vectors straight into their sorted columns (no big copies)
+        n = H.shape[0]
+        vr = np.empty((n, n), dtype=complex, order="F")  # whole columns are written
+        vl = np.empty((n, n), dtype=complex, order="F")
+        start = 0
+        for sec, (ws, vs, ls) in zip(secs, parts):
+            cols = where[start:start + ws.size]
+            start += ws.size
+            vr[:, cols] = symmetry.lift(vs, sec)
+            vl[:, cols] = symmetry.lift(ls, sec)
+        w, sector = w[order], sector[order]
     scale = max(1.0, float(np.max(np.abs(w))))
     cluster = _degenerate_clusters(w, DEGENERACY_TOL * scale)
     # average the Petermann factor only over spaces that really are orthonormal

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import tempfile
+from collections import OrderedDict
 import threading
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -23,6 +24,7 @@ from physics import bands as bnd
 from physics import scenario as scn
 from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters, nearest_neighbour_distance, polar_dipole
+from physics import large
 from physics.modes import Modes
 from physics.solution import solve_scenario
 from physics.driving import Probe, field_intensity_map, fit_resonance, probe_scan, scan_signal
@@ -76,6 +78,12 @@ SWEEP_PARAMETERS = {
 #: Largest run the explorer starts (estimated seconds on one core); bigger runs are
 #: pointed to `choir sweep`, which can use every core or a cluster.
 SWEEP_LIMIT_S = 90.0
+
+#: Arrays from this size are solved eigenvalues first, eigenvectors second.
+LAZY_FROM = 1000
+#: Solved scenarios kept for a quick return, and the largest array kept.
+CACHE_ENTRIES = 6
+CACHE_MAX_EMITTERS = 1200
 
 #: Most undo steps kept.
 UNDO_DEPTH = 50
@@ -371,6 +379,7 @@ class ExplorerState(param.Parameterized):
         self._mode_generation = 0
         self._analysis_generation = 0
         self._bands_generation = 0
+        self._cache: OrderedDict[str, Result] = OrderedDict()
         self._sweep_cancel = threading.Event()
         self._undo: list[scn.Scenario] = []
         self._applying = False
@@ -619,7 +628,12 @@ class ExplorerState(param.Parameterized):
         self.solve()
 
     def solve(self) -> None:
-        """Validate the inputs and (re)compute the modes through the runner."""
+        """Validate the inputs and (re)compute the modes through the runner.
+
+        A scenario solved recently is served from the cache at once.  Arrays of
+        LAZY_FROM emitters or more are solved in two steps: the eigenvalues
+        first (the spectrum view draws them), then the eigenvectors.
+        """
         try:
             sc = self.to_scenario()
         except scn.ScenarioError as exc:
@@ -627,18 +641,38 @@ class ExplorerState(param.Parameterized):
             return
         self._generation += 1
         gen = self._generation
+        key = scn.dumps(sc)
+        cached = self._cache.get(key)
+        if cached is not None:
+            self._cache.move_to_end(key)
+            self._accept_result(replace(cached, generation=gen))
+            return
         self.busy = True
         self.runner.submit(lambda: self._solve_job(gen, sc), self._accept_result)
 
     @staticmethod
-    def _solve_job(gen: int, sc: scn.Scenario) -> Result | Exception:
+    def _solve_job(gen: int, sc: scn.Scenario, *, full: bool = False) -> Result | Exception:
         try:
+            em = sc.emitters()
+            if em.n >= LAZY_FROM and not full:
+                env = sc.environment_model()
+                w, sector, names = large.spectrum(em, env)
+                return Result(gen, sc, em, Modes.spectrum_only(w, sector, names), (), env)
             sol = solve_scenario(sc)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
         notes = sol.notes + ((DEFECTIVE_NOTE,) if sol.defective else ())
         return Result(gen, sc, sol.emitters, sol.modes, notes, sol.environment, sol.defective,
                       sol.guided)
+
+    def _remember(self, res: Result) -> None:
+        """Keep a solved scenario for a quick return (undo, a slider moved back)."""
+        size = res.emitters.n
+        if not res.modes.has_vectors or size > CACHE_MAX_EMITTERS:
+            return
+        self._cache[scn.dumps(res.scenario)] = res
+        while len(self._cache) > CACHE_ENTRIES:
+            self._cache.popitem(last=False)
 
     def _accept_result(self, res: Result | Exception) -> None:
         if isinstance(res, Exception):
@@ -649,7 +683,14 @@ class ExplorerState(param.Parameterized):
             return  # a newer request is on its way
         mode = min(self.selected_mode, res.modes.n - 1)
         self.message = ""
+        if not res.modes.has_vectors:  # eigenvalues first; the vectors follow
+            self.busy = True
+            self.result = res
+            gen, sc = res.generation, res.scenario
+            self.runner.submit(lambda: self._solve_job(gen, sc, full=True), self._accept_result)
+            return
         self.busy = False
+        self._remember(res)
         self.result = res
         if mode != self.selected_mode:
             self.selected_mode = mode  # its watcher computes the mode figures
@@ -664,7 +705,7 @@ class ExplorerState(param.Parameterized):
 
     def _solve_mode(self) -> None:
         res = self.result
-        if res is None:
+        if res is None or not res.modes.has_vectors:
             return
         m = min(self.selected_mode, res.modes.n - 1)
         self._mode_generation += 1
@@ -715,7 +756,7 @@ class ExplorerState(param.Parameterized):
 
     def _analyse(self) -> None:
         res = self.result
-        if res is None:
+        if res is None or not res.modes.has_vectors:
             return
         try:
             probe = self.probe_model()
@@ -790,7 +831,7 @@ class ExplorerState(param.Parameterized):
 
     def _compute_bands(self) -> None:
         res = self.result
-        if res is None or not self.bands_visible:
+        if res is None or not self.bands_visible or not res.modes.has_vectors:
             return
         self._bands_generation += 1
         gen, vector = self._bands_generation, self.bands_polarization == "all"

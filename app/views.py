@@ -114,9 +114,12 @@ class SpectrumView:
         x = st.to_frequency(shifts)
         y = st.to_frequency(np.maximum(rates, RATE_FLOOR))
         life = st.to_time(m.lifetimes)
+        color_by = st.color_by
+        if not m.has_vectors and color_by in ("participation_ratio", "petermann"):
+            color_by = "decay_rate"  # until the eigenvectors arrive
         fig = {"participation_ratio": m.participation_ratio, "petermann": m.petermann,
                "shift": x, "decay_rate": np.log10(np.maximum(rates, RATE_FLOOR)),
-               "symmetry": m.sector.astype(float)}[st.color_by]
+               "symmetry": m.sector.astype(float)}[color_by]
         rate_txt = [(_fmt(v, fu) if r > RATE_FLOOR else f"≤ {RATE_FLOOR:g} Γ0 (round-off)")
                     for v, r in zip(st.to_frequency(rates), rates)]
         self.source.data = dict(
@@ -124,7 +127,7 @@ class SpectrumView:
             rate=rate_txt, life=[_fmt(v, tu) for v in life], pr=m.participation_ratio,
             pk=m.petermann, tag=[radiance_label(r) for r in rates],
             sym=[m.sector_names[s] for s in m.sector])
-        if st.color_by == "symmetry":  # one colour per sector
+        if color_by == "symmetry":  # one colour per sector
             k = len(m.sector_names)
             self.mapper.update(palette=list(Category10[10][: max(3, k)]) if k <= 10 else Cividis256,
                                low=-0.5, high=max(3, k) - 0.5)
@@ -133,8 +136,9 @@ class SpectrumView:
             if hi - lo < 1e-12:
                 hi = lo + 1.0
             self.mapper.update(palette=Cividis256, low=lo, high=hi)
-        unit = f" [{fu}]" if st.color_by == "shift" else ""
-        self.colorbar.title = FIGURE_LABELS[st.color_by] + unit
+        unit = f" [{fu}]" if color_by == "shift" else ""
+        self.colorbar.title = FIGURE_LABELS[color_by] + unit + (
+            "" if color_by == st.color_by else " — eigenvectors still being computed")
         lab = "Γ/2π [MHz]" if st.units == "lab" else "Γ [Γ0]"
         shift_lab = "ω/2π [MHz]" if st.units == "lab" else "ω [Γ0]"
         self.figure.yaxis.axis_label = f"decay rate {lab}"
@@ -220,7 +224,8 @@ class ArrayView:
             return
         em, m = res.emitters, res.modes
         k = min(st.selected_mode, m.n - 1)
-        c = m.vectors[:, k] if not res.defective else np.ones(m.n)  # no meaningful profile
+        # no meaningful profile (defective), or not computed yet (eigenvalues first)
+        c = m.vectors[:, k] if not res.defective and m.has_vectors else np.ones(m.n)
         big = c[np.argmax(np.abs(c))]
         c = c * np.conj(big) / abs(big) ** 2  # largest amplitude → 1 (real, positive)
         amp = np.abs(c)
@@ -870,6 +875,12 @@ def mode_card_html(state: ExplorerState) -> str:
         return (f"<div style='font-size:13px'><b style='font-size:15px'>Eigenvalue {k}</b> of "
                 f"{m.n}<p>decay rate {rate:.4g} Γ0, shift {shift:+.4g} Γ0</p>"
                 f"<p style='color:#b71c1c'>{html.escape(DEFECTIVE_NOTE)}</p></div>")
+    if not m.has_vectors:
+        rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
+        return (f"<div style='font-size:13px'><b style='font-size:15px'>Mode {k}</b> of {m.n}"
+                f"<p>decay rate {rate:.4g} Γ0, shift {shift:+.4g} Γ0</p><p style='color:#555'>"
+                f"Eigenvalues first: the eigenvectors of this large array are being computed; "
+                f"the mode's profile, far field and figures follow.</p></div>")
     rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
     fu, tu = state.frequency_label(), state.time_label()
     tag = radiance_label(rate)

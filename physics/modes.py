@@ -117,9 +117,26 @@ class Modes:
             g = self.decay_rates
             return np.where(g > 0, 1.0 / np.where(g > 0, g, 1.0), np.inf)
 
+    @property
+    def has_vectors(self) -> bool:
+        """False for a spectrum alone (:meth:`spectrum_only`): figures that need vectors are NaN."""
+        return self.vectors is not None
+
+    @classmethod
+    def spectrum_only(cls, eigenvalues: np.ndarray, sector: np.ndarray | None = None,
+                      sector_names: tuple[str, ...] = ("no symmetry used",)) -> "Modes":
+        """Modes without eigenvectors (eigenvalues first; see physics.large.spectrum)."""
+        w = np.asarray(eigenvalues, dtype=complex)
+        scale = max(1.0, float(np.max(np.abs(w)))) if w.size else 1.0
+        return cls(eigenvalues=w, vectors=None, left_vectors=None,
+                   cluster=_degenerate_clusters(w, DEGENERACY_TOL * scale),
+                   sector=sector, sector_names=sector_names)
+
     @cached_property
     def participation_ratio(self) -> np.ndarray:
         """(Σ_j |c_j|²)² / Σ_j |c_j|⁴ per mode: about how many emitters carry it (1 to N)."""
+        if self.vectors is None:
+            return np.full(self.n, np.nan)
         p = np.abs(self.vectors) ** 2
         return p.sum(axis=0) ** 2 / np.sum(p * p, axis=0)
 
@@ -140,6 +157,8 @@ class Modes:
         """
         # near an exceptional point the left vectors are huge: K overflows to inf
         l, c = self.left_vectors, self.vectors
+        if c is None:
+            return np.full(self.n, np.nan)
         with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
             # column sums on the real and imaginary views: no N×N temporaries
             dot = lambda a, b: np.einsum("ij,ij->j", a, b)  # noqa: E731

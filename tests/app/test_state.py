@@ -281,3 +281,41 @@ def test_a_sweep_can_be_cancelled_and_keeps_what_finished():
     assert rep.cancelled and 1 <= rep.computed < 6 and not st.sweep_running
     assert len([s for s in st.sweep.summary if s["figure"] == "most_subradiant_rate"]) == \
         rep.computed
+
+
+def test_large_arrays_show_eigenvalues_first_then_vectors(monkeypatch):
+    import app.state as state_module
+    from app.views import ArrayView, SpectrumView, mode_card_html
+
+    monkeypatch.setattr(state_module, "LAZY_FROM", 50)
+    runner = ManualRunner()
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"), runner=runner)
+    spectrum, array = SpectrumView(st), ArrayView(st)
+    st.solve()
+    runner.release(0)  # first step: eigenvalues only
+    assert st.result is not None and not st.result.modes.has_vectors and st.busy
+    assert len(spectrum.source.data["x"]) == 256 and "being computed" in mode_card_html(st)
+    assert len(array.source.data["x"]) == 256
+    ref = solve_modes(st.result.emitters, st.result.environment, use_symmetry=False)
+    np.testing.assert_allclose(st.result.modes.decay_rates, ref.decay_rates, atol=1e-10)
+    runner.release(0)  # second step: eigenvectors
+    assert st.result.modes.has_vectors and not st.busy
+    while runner.jobs:  # mode figures, probe analysis
+        runner.release(0)
+    assert st.mode_result is not None and "participation ratio" in mode_card_html(st)
+
+
+def test_a_scenario_solved_before_comes_from_the_cache():
+    runner = ManualRunner()
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "nonagon_ring.json"), runner=runner)
+    st.solve()
+    runner.release(0)
+    first = st.result
+    while runner.jobs:
+        runner.release(0)
+    st.n = 12
+    runner.release(0)
+    while runner.jobs:
+        runner.release(0)
+    st.n = first.emitters.n  # back: no solve job, the same modes at once
+    assert st.result.modes is first.modes and st.result.generation == st._generation

@@ -100,7 +100,11 @@ def decay_observables(H: np.ndarray, times: np.ndarray, amplitudes: np.ndarray,
            "power": np.real(np.einsum("ti,ij,tj->t", c.conj(), gamma, c))}
     if channels is not None:
         em, env = channels
-        per_time = [env.emitted_power(em, row) for row in c]
-        for name in per_time[0]:
-            out[name] = np.array([p[name] for p in per_time])
+        names = list(env.emitted_power(em, c[0]))
+        if len(names) == 1:  # one channel: it carries all the emitted power
+            out[names[0]] = out["power"].copy()
+        else:
+            per_time = [env.emitted_power(em, row) for row in c]
+            for name in names:
+                out[name] = np.array([p[name] for p in per_time])
     return out

@@ -565,6 +565,8 @@ def loads(text: str | bytes) -> Scenario:
                             f"column {exc.colno}") from None
     except RecursionError:
         raise ScenarioError("", "not a usable scenario: nesting is too deep") from None
+    except ValueError as exc:  # e.g. an integer of thousands of digits
+        raise ScenarioError("", f"not a usable scenario: {str(exc).split(';')[0]}") from None
     return from_dict(doc)
 
 

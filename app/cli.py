@@ -115,11 +115,10 @@ FULL_SOLVE_BLOCK_LIMIT = 5000
 
 
 def _largest_block(sc) -> tuple[int, int]:
-    from physics.symmetry import find_symmetry
+    from physics.large import largest_block
 
-    em, env = sc.emitters(), sc.environment_model()
-    group = find_symmetry(em, tuple(getattr(env, "symmetry_operations", ())))
-    return em.n, (em.n if group is None else max(len(sec.reps) for sec in group.sectors()))
+    em = sc.emitters()
+    return em.n, largest_block(em, sc.environment_model())
 
 
 def _bar(fraction: float, text: str) -> None:

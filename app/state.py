@@ -81,6 +81,8 @@ SWEEP_LIMIT_S = 90.0
 
 #: Arrays from this size are solved eigenvalues first, eigenvectors second.
 LAZY_FROM = 1000
+#: Largest symmetry block whose eigenvectors the explorer computes (time and memory).
+EXPLORER_BLOCK_LIMIT = 5000
 #: Solved scenarios kept for a quick return, and the largest array kept.
 CACHE_ENTRIES = 6
 CACHE_MAX_EMITTERS = 1200
@@ -658,6 +660,14 @@ class ExplorerState(param.Parameterized):
                 env = sc.environment_model()
                 w, sector, names = large.spectrum(em, env)
                 return Result(gen, sc, em, Modes.spectrum_only(w, sector, names), (), env)
+            if em.n >= LAZY_FROM:
+                block = large.largest_block(em, sc.environment_model())
+                if block > EXPLORER_BLOCK_LIMIT:
+                    raise ValueError(
+                        f"the spectrum is shown, but every eigenvector of {em.n} emitters (largest "
+                        f"symmetry block {block}, allowed up to {EXPLORER_BLOCK_LIMIT}) is beyond "
+                        f"the explorer; for chosen modes use `choir solve --modes K` on the "
+                        f"downloaded scenario")
             sol = solve_scenario(sc)
         except (ValueError, MemoryError, np.linalg.LinAlgError) as exc:
             return exc
@@ -677,7 +687,12 @@ class ExplorerState(param.Parameterized):
     def _accept_result(self, res: Result | Exception) -> None:
         if isinstance(res, Exception):
             self.busy = False
-            self.message = f"Not computed — {res}"
+            shown = self.result
+            if shown is not None and shown.generation == self._generation \
+                    and not shown.modes.has_vectors:
+                self.message = f"Eigenvectors not computed — {res}"
+            else:
+                self.message = f"Not computed — {res}"
             return
         if res.generation != self._generation:
             return  # a newer request is on its way

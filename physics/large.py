@@ -42,7 +42,7 @@ from .hamiltonian import Environment, coupling_matrix
 from .modes import map_blocks
 from .symmetry import find_symmetry
 
-__all__ = ["spectrum", "chosen_modes", "ChosenModes", "memory_needed", "free_memory",
+__all__ = ["spectrum", "chosen_modes", "largest_block", "ChosenModes", "memory_needed", "free_memory",
            "DENSE_BLOCK_LIMIT", "MemoryRequestError"]
 
 #: Symmetry blocks up to this size get all their eigenvalues densely; larger
@@ -87,6 +87,12 @@ def _blocks(em: Emitters, environment, use_symmetry: bool):
     if group is None:
         return H, None, [(None, "no symmetry used")]
     return H, group, [(sec, group.labels(sec.parities)) for sec in group.sectors()]
+
+
+def largest_block(em: Emitters, environment) -> int:
+    """Size of the largest symmetry block of the coupling matrix (N without symmetry)."""
+    group = find_symmetry(em, tuple(getattr(environment, "symmetry_operations", ())))
+    return em.n if group is None else max(len(sec.reps) for sec in group.sectors())
 
 
 def spectrum(em: Emitters, environment: Environment, *, use_symmetry: bool = True,

@@ -319,3 +319,17 @@ def test_a_scenario_solved_before_comes_from_the_cache():
         runner.release(0)
     st.n = first.emitters.n  # back: no solve job, the same modes at once
     assert st.result.modes is first.modes and st.result.generation == st._generation
+
+
+def test_eigenvectors_beyond_the_explorer_keep_the_spectrum_and_say_why(monkeypatch):
+    import app.state as state_module
+
+    monkeypatch.setattr(state_module, "LAZY_FROM", 50)
+    monkeypatch.setattr(state_module, "EXPLORER_BLOCK_LIMIT", 40)
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st.solve()  # 4 mirror blocks of 64 > 40
+    assert st.result is not None and not st.result.modes.has_vectors and not st.busy
+    assert st.message.startswith("Eigenvectors not computed — the spectrum is shown")
+    assert "choir solve --modes K" in st.message
+    st.nx = 5  # the session stays usable: a smaller array solves fully
+    assert st.result.modes.has_vectors and st.message == ""

@@ -678,7 +678,8 @@ def cmd_serve(args) -> int:
               f"the explorer (no login). Restrict access with a firewall or --allow-origin.",
               file=sys.stderr)
     serve(sc, port=args.port, address=args.address, show=args.show,
-          allow_origin=args.allow_origin)
+          allow_origin=args.allow_origin,
+          autosave_dir="" if args.no_autosave else args.autosave_dir)
     return 0
 
 
@@ -838,6 +839,11 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--address", default="127.0.0.1",
                    help="address to listen on (default 127.0.0.1: this machine only)")
     e.add_argument("--show", action="store_true", help="open a browser tab")
+    e.add_argument("--autosave-dir", dest="autosave_dir",
+                   help="folder for each session's current scenario (default "
+                        "~/.cache/choir/sessions, or $CHOIR_AUTOSAVE_DIR)")
+    e.add_argument("--no-autosave", dest="no_autosave", action="store_true",
+                   help="keep nothing on the server (a reload then starts afresh)")
     e.add_argument("--allow-origin", dest="allow_origin", action="append",
                    help="host:port allowed to open the page's websocket (repeatable)")
     e.set_defaults(func=cmd_serve)

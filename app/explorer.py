@@ -10,7 +10,9 @@ import html
 import io
 import os
 import re
+import secrets
 import threading
+import time
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any, Callable
@@ -429,6 +431,64 @@ _URL_KEYS = {"lattice": "lattice", "n": "n", "nx": "nx", "ny": "ny", "nz": "nz",
              "transition": "line", "units": "units", "lens_na": "na", "selected_mode": "mode"}
 
 
+class Autosave:
+    """The server keeps each session's current scenario in one JSON file per session key.
+
+    The key (random, 22 URL-safe characters) travels in the page address
+    (``?session=…``), so reloading the page — or reopening the address after
+    the server restarted — brings back the scenario exactly, drawn geometry
+    included.  Keys that do not match ``KEY`` are ignored (no path ever comes
+    from the page); files are plain scenario JSON, read with the same checks as
+    any uploaded file; files untouched for ``KEEP_DAYS`` are removed at start.
+    """
+
+    KEY = re.compile(r"^[A-Za-z0-9_-]{16,64}$")
+    KEEP_DAYS = 30
+
+    def __init__(self, folder: str | Path) -> None:
+        self.folder = Path(folder).expanduser()
+        self.folder.mkdir(parents=True, exist_ok=True, mode=0o700)
+        cutoff = time.time() - self.KEEP_DAYS * 86400
+        for old in self.folder.glob("*.json"):
+            try:
+                if old.stat().st_mtime < cutoff:
+                    old.unlink()
+            except OSError:
+                pass
+
+    @staticmethod
+    def new_key() -> str:
+        return secrets.token_urlsafe(16)
+
+    def _path(self, key: str) -> Path | None:
+        return self.folder / f"{key}.json" if self.KEY.match(key or "") else None
+
+    def load(self, key: str) -> scn.Scenario | None:
+        path = self._path(key)
+        if path is None or not path.is_file():
+            return None
+        try:
+            return scn.loads(path.read_bytes())
+        except (scn.ScenarioError, OSError):
+            return None
+
+    def save(self, key: str, sc: scn.Scenario) -> None:
+        path = self._path(key)
+        if path is None:
+            return
+        tmp = path.with_suffix(".tmp")
+        tmp.write_text(scn.dumps(sc), encoding="utf-8")
+        os.replace(tmp, path)
+
+
+def default_autosave_dir() -> Path:
+    """``$CHOIR_AUTOSAVE_DIR``, else ``$XDG_CACHE_HOME/choir/sessions`` (``~/.cache`` by default)."""
+    if os.environ.get("CHOIR_AUTOSAVE_DIR"):
+        return Path(os.environ["CHOIR_AUTOSAVE_DIR"])
+    base = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache")
+    return base / "choir" / "sessions"
+
+
 def _url_refused(state: ExplorerState):
     def report(values: dict) -> None:
         state.message = ("Some settings in the page address were not applied (out of range or "
@@ -535,8 +595,13 @@ def _sweep_card(state: ExplorerState) -> tuple[pn.Card, SweepView]:
     return card, view
 
 
-def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None):
-    """One explorer page (a Panel layout) with its own session state."""
+def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState | None = None,
+                   autosave: Autosave | None = None):
+    """One explorer page (a Panel layout) with its own session state.
+
+    With ``autosave`` (served sessions), the current scenario is written to the
+    server after every solve and restored from the page address's session key.
+    """
     doc = pn.state.curdoc
     # a live server session (choir serve, panel serve), not a notebook or a test
     served = doc is not None and getattr(doc, "session_context", None) is not None
@@ -637,10 +702,26 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
 
         def start():
             state._applying = False
+            saved = autosave.load(state.session_key) if autosave is not None else None
+            if saved is not None:  # a reload, or the server restarted: nothing is lost
+                state.apply_scenario(saved)
+                return
+            if autosave is not None and not Autosave.KEY.match(state.session_key or ""):
+                state.session_key = Autosave.new_key()
             state.solve()
 
+        if autosave is not None:
+            def keep(*_):
+                if state.result is not None and state.session_key:
+                    try:
+                        autosave.save(state.session_key, state.scenario_for_export())
+                    except OSError as exc:
+                        state.message = f"Autosave failed — {exc.strerror}; download the scenario"
+
+            state.param.watch(keep, "result")
         if pn.state.location is not None:
-            pn.state.location.sync(state, dict(_URL_KEYS), on_error=_url_refused(state))
+            keys = dict(_URL_KEYS, **({"session_key": "session"} if autosave is not None else {}))
+            pn.state.location.sync(state, keys, on_error=_url_refused(state))
         pn.state.onload(start)
     else:
         state.solve()
@@ -659,14 +740,25 @@ def explorer(scenario: str | Path | scn.Scenario | None = None):
 
 
 def serve(scenario: scn.Scenario | None, *, port: int = 5006, address: str = "127.0.0.1",
-          show: bool = False, allow_origin: list[str] | None = None) -> None:
-    """Serve the explorer; every browser session gets its own state."""
+          show: bool = False, allow_origin: list[str] | None = None,
+          autosave_dir: str | Path | None = None) -> None:
+    """Serve the explorer; every browser session gets its own state.
+
+    ``autosave_dir``: where each session's scenario is kept (None: the default
+    folder, "" to switch autosaving off).
+    """
     from threadpoolctl import threadpool_limits
 
     threadpool_limits(1)  # one BLAS thread per solve: two sessions solve in parallel
     pn.extension()
     origins = allow_origin or [f"{address}:{port}", f"localhost:{port}"]
-    pn.serve({"/": lambda: build_explorer(scenario)}, port=port, address=address, show=show,
+    folder = None if autosave_dir == "" else Path(autosave_dir or default_autosave_dir())
+    try:
+        store = Autosave(folder) if folder is not None else None
+    except OSError as exc:
+        raise ValueError(f"--autosave-dir: cannot use {folder}: {exc.strerror}") from None
+    pn.serve({"/": lambda: build_explorer(scenario, autosave=store)}, port=port, address=address,
+             show=show,
              websocket_origin=origins, title="Choir explorer", print_url=True)
 
 

@@ -362,6 +362,9 @@ class ExplorerState(param.Parameterized):
         default="most_subradiant_rate", doc="Sweep: the figure plotted (no unit)")
     sweep_fit = param.Boolean(False, doc="Sweep: log axes and a power-law fit (no unit)")
 
+    session_key = param.String("", doc="Key of this browser session's autosaved scenario on "
+                               "the server, carried in the page address (text, no unit)")
+
     # --- outputs ------------------------------------------------------------
     result = param.Parameter(None, doc="Latest solved arrangement, a Result (no unit)")
     mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")

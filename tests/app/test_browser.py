@@ -42,9 +42,9 @@ def _free_port() -> int:
         return s.getsockname()[1]
 
 
-def _start(cmd: list[str], url: str) -> subprocess.Popen:
+def _start(cmd: list[str], url: str, name: str | None = None) -> subprocess.Popen:
     ARTIFACTS.mkdir(exist_ok=True)
-    log = open(ARTIFACTS / f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log", "wb")
+    log = open(ARTIFACTS / (name or f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log"), "wb")
     proc = subprocess.Popen(cmd, cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
                             env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
     log.close()  # the child keeps its own handle
@@ -59,14 +59,15 @@ def _start(cmd: list[str], url: str) -> subprocess.Popen:
         except OSError:
             time.sleep(0.3)
     proc.kill()
+    proc.wait(timeout=20)
     raise RuntimeError("server did not answer within 60 s")
 
 
 @pytest.fixture(scope="module")
 def server():
     port = _free_port()
-    cmd = [sys.executable, "-m", "app.cli", "serve", "scenarios/nonagon_ring.json",
-           "--port", str(port)]
+    cmd = [sys.executable, "-m", "app.cli", "serve", "--autosave-dir",
+           str(ARTIFACTS / "autosave"), "--port", str(port), "scenarios/nonagon_ring.json"]
     proc = _start(cmd, f"http://127.0.0.1:{port}/")
     yield f"http://127.0.0.1:{port}/"
     proc.terminate()
@@ -392,3 +393,80 @@ def test_imperfect_array_redraw_and_an_ensemble_run(tab, tmp_path):
     assert "Same run from the command line: choir sweep" in tab.text()
     tab.page.mouse.move(5, 5)
     tab.page.screenshot(path=str(ARTIFACTS / "explorer-sweep.png"), full_page=True)
+
+
+def test_sessions_on_one_server_keep_their_own_state(browser, server):
+    """Three tabs, three arrays: each keeps its own, also while another one changes."""
+    sizes = {8: None, 12: None, 15: None}
+    tabs = {n: Page(browser, server + f"?lattice=chain&n={n}&a=0.3") for n in sizes}
+    try:
+        for n, t in tabs.items():
+            assert t.wait_for_points(lambda k, n=n: k == n) == n
+        # change one session: the others must not move
+        tabs[12].page.get_by_text("more radiant ▶").click()
+        tabs[12].wait_for("return doc.get_model_by_name('choir-spectrum-marker').data.x[0] !== "
+                          "doc.get_model_by_name('choir-spectrum-points').data.x[0]")
+        for n, t in tabs.items():
+            assert len(t.data("choir-spectrum-points", "x")) == n
+            assert t.errors == []
+        assert tabs[8].data("choir-spectrum-marker", "x")[0] == \
+            tabs[8].data("choir-spectrum-points", "x")[0]
+    finally:
+        for t in tabs.values():
+            t.close()
+
+
+def _draw_one_emitter(t: "Page", n_before: int) -> None:
+    t.page.locator("[title^='Edit emitters']").first.click()
+    sx, sy = t.screen_xy("choir-array", 0.0, 0.0)  # the ring's empty centre
+    t.page.mouse.click(sx, sy)
+    assert t.wait_for_points(lambda n: n == n_before + 1) == n_before + 1
+
+
+def _session_url(t: "Page") -> str:
+    deadline = time.time() + 20
+    while time.time() < deadline:
+        url = t.page.url
+        if "session=" in url:
+            return url
+        time.sleep(0.2)
+    raise AssertionError("the page address never got its session key")
+
+
+def test_a_drawn_array_survives_a_reload(tab):
+    _draw_one_emitter(tab, 9)
+    url = _session_url(tab)
+    time.sleep(1.0)  # the autosave follows the solve
+    tab.page.goto(url, wait_until="domcontentloaded")
+    assert tab.wait_for_points(lambda n: n == 10) == 10
+    assert "(modified)" in tab.text() or "N = 10" in tab.text()
+
+
+def test_a_drawn_array_survives_a_server_restart(browser, tmp_path):
+    port = _free_port()
+    cmd = [sys.executable, "-m", "app.cli", "serve", "--autosave-dir", str(tmp_path),
+           "--port", str(port), "scenarios/nonagon_ring.json"]
+    base = f"http://127.0.0.1:{port}/"
+    proc = _start(cmd, base, "server-restart-1.log")
+    try:
+        t = Page(browser, base)
+        _draw_one_emitter(t, 9)
+        url = _session_url(t)
+        deadline = time.time() + 20
+        while not list(tmp_path.glob("*.json")) and time.time() < deadline:
+            time.sleep(0.2)
+        t.close()
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)
+    saved = list(tmp_path.glob("*.json"))
+    assert len(saved) == 1 and saved[0].stem in url
+    proc = _start(cmd, base, "server-restart-2.log")  # back: the same address restores the work
+    try:
+        t = Page(browser, url)
+        assert t.wait_for_points(lambda n: n == 10) == 10
+        assert t.errors == []
+        t.close()
+    finally:
+        proc.terminate()
+        proc.wait(timeout=20)

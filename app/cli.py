@@ -865,6 +865,16 @@ def main(argv: Sequence[str] | None = None) -> int:
         print("choir: error: not enough memory for this array on this machine; reduce N",
               file=sys.stderr)
         return 2
+    except np.linalg.LinAlgError as exc:  # e.g. an eigen-solver that did not converge
+        print(f"choir: error: the linear-algebra solver failed ({exc}); try fewer or different "
+              f"modes (--modes, --which) or a smaller array", file=sys.stderr)
+        return 2
+    except RuntimeError as exc:  # ARPACK's no-convergence is a RuntimeError
+        if "ARPACK" not in str(exc) and "converge" not in str(exc):
+            raise
+        print(f"choir: error: the iterative eigen-solver did not converge ({exc}); ask for "
+              f"fewer modes or use --which near with a --target", file=sys.stderr)
+        return 2
     except BrokenPipeError:  # output piped into e.g. `head`, which stopped reading
         sys.stdout = open(os.devnull, "w")
         return 0

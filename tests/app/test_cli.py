@@ -245,3 +245,20 @@ def test_full_solve_of_a_huge_unsymmetric_array_points_to_modes(tmp_path):
     assert res.returncode == 2 and "--modes K" in res.stderr and "6400 emitters" in res.stderr
     res = run_cli("solve", str(tmp_path / "big.json"), "--modes", "2", "--which", "near")
     assert res.returncode == 2 and "--target: --which near needs" in res.stderr
+
+
+def test_solver_failures_become_messages(monkeypatch, capsys):
+    # A non-converging iterative solve must reach the user as a message, exit 2.
+    import scipy.sparse.linalg
+
+    from physics import large
+
+    def no_convergence(*a, **k):
+        raise scipy.sparse.linalg.ArpackNoConvergence("ARPACK error -1: No convergence", [], [])
+
+    monkeypatch.setattr(large, "DENSE_BLOCK_LIMIT", 1)  # every block goes to ARPACK
+    monkeypatch.setattr(scipy.sparse.linalg, "eigs", no_convergence)
+    code = main(["solve", str(ROOT / "scenarios" / "nonagon_ring.json"), "--modes", "2",
+                 "--out", str(ROOT / "artifacts" / "noconv")])
+    err = capsys.readouterr().err
+    assert code == 2 and "did not converge" in err and "Traceback" not in err

@@ -343,7 +343,7 @@ def _client(scheduler: str | None, workers: int | None):
                                host="127.0.0.1", dashboard_address="127.0.0.1:0",
                                scheduler_kwargs={"dashboard": False}, silence_logs=40)
         return Client(cluster), cluster, f"local Dask cluster, {n} worker processes"
-    client = Client(scheduler, timeout="20s")
+    client = Client(scheduler, timeout="10s")
     n = len(client.scheduler_info().get("workers", {}))
     return client, None, f"Dask scheduler {scheduler}, {n} workers"
 

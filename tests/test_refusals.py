@@ -41,8 +41,8 @@ SQ = B.periodic_lattice("square", {"spacing": 0.5})
     (lambda: B.Chain(0.3, "w"), "axis: 'w' is not allowed; allowed: x, y, z"),
     (lambda: realise(lattices.chain(3, 0.3), Imperfections(filling=0.5, seed=1), -1),
      "realisation: -1 is out of range; allowed 0 to 4294967295"),
-    (lambda: realise(lattices.explicit(np.arange(50)[:, None] * [1.2e-4, 0.0, 0.0]),
-                     Imperfections((1e-4, 1e-4, 1e-4), seed=1)),
+    (lambda: realise(lattices.explicit(np.arange(5)[:, None] * [5e-5, 0.0, 0.0]),
+                     Imperfections((1e-9, 1e-9, 1e-9), seed=1)),
      "imperfections.jitter: 20 draws each put two emitters closer than"),
 ])
 def test_physics_refusals(call, words):

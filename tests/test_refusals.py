@@ -303,3 +303,16 @@ def test_cli_refuses_placing_modes_of_a_huge_array_and_memory(tmp_path, capsys, 
     assert main(["solve", str(ROOT / "scenarios" / "nonagon_ring.json"), "--modes", "2",
                  "--out", str(tmp_path / "m")]) == 2
     assert "--modes: N = 9 emitters:" in capsys.readouterr().err
+
+
+def test_last_refusal_paths():
+    with pytest.raises(S.SweepError, match=re.escape(
+            "--vary: 'geometry.spacing.x.y' does not lead to a number in the scenario")):
+        S.Plan(_doc(), (S.parse_axis("geometry.spacing.x.y=1,2"),)).scenario_at(0)
+    with pytest.raises(ValueError, match=re.escape("scale: 11.0 is out of range; allowed 0 to 10")):
+        FreeSpace(scale=11.0)
+    with pytest.raises(scn.ScenarioError, match=re.escape("environment[0].kind: 'laser' is not supported")):
+        scn._build_environment(((("kind", "laser"),),))
+    em = lattices.chain(3, 0.3)
+    with pytest.raises(ValueError, match=re.escape("from_end: 'x' is not allowed; allowed: -, +")):
+        Waveguide(0.5, 0.5, axis="x").transmission(em, np.ones(3), "x")

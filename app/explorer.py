@@ -505,10 +505,11 @@ def _bands_card(state: ExplorerState) -> tuple[pn.Card, BandsView]:
                              sizing_mode="stretch_width")
 
     def show(*_):
-        summary.object = html.escape(view.summary)
+        summary.object = ("computing the bands…" if state.bands_computing
+                          else html.escape(view.summary))
         selection.object = html.escape(view.selection_text)
 
-    state.param.watch(show, ["bands", "selected_mode", "units", "transition"])
+    state.param.watch(show, ["bands", "bands_computing", "selected_mode", "units", "transition"])
     download = pn.widgets.FileDownload(
         callback=lambda: io.StringIO(
             bands_csv(state.bands.path, state.bands.bands, state.transition_obj)

@@ -370,6 +370,7 @@ class ExplorerState(param.Parameterized):
     mode_result = param.Parameter(None, doc="Figures of the selected mode, a ModeResult (no unit)")
     analysis = param.Parameter(None, doc="Probe scan, field map and decay, an Analysis (no unit)")
     bands = param.Parameter(None, doc="Bands of the infinite lattice, a BandsResult (no unit)")
+    bands_computing = param.Boolean(False, doc="True while the bands are computed (no unit)")
     sweep = param.Parameter(None, doc="Last ensemble or sweep, a SweepResult (no unit)")
     sweep_progress = param.Number(0.0, bounds=(0.0, 1.0), doc="Share of the sweep done (no unit)")
     sweep_running = param.Boolean(False, doc="True while a sweep runs (no unit)")
@@ -853,6 +854,7 @@ class ExplorerState(param.Parameterized):
             return
         self._bands_generation += 1
         gen, vector = self._bands_generation, self.bands_polarization == "all"
+        self.bands_computing = True
         self.runner.submit(lambda: self._bands_job(gen, res, vector), self._accept_bands)
 
     @staticmethod
@@ -905,8 +907,10 @@ class ExplorerState(param.Parameterized):
 
     def _accept_bands(self, br) -> None:
         if isinstance(br, Exception):
+            self.bands_computing = False
             self.message = f"Bands not computed — {br}"
         elif br.generation == self._bands_generation:
+            self.bands_computing = False
             self.bands = br
 
     # ------------------------------------------------------------ ensembles and sweeps

@@ -39,7 +39,6 @@ sys.path.insert(0, str(Path(__file__).parents[1]))
 
 from app.explorer import build_explorer  # noqa: E402
 from app.state import FAR_FIELD_PIXELS  # noqa: E402
-from physics import lattices  # noqa: E402
 from physics.far_field import angular_order, cap_grid  # noqa: E402
 from physics.free_space import K0, greens_tensor  # noqa: E402
 

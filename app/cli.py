@@ -156,7 +156,7 @@ def cmd_solve_chosen(args, sc) -> int:
     w.writerow(["rank", "shift_gamma0", "decay_rate_gamma0", "lifetime_per_gamma0", "shift_mhz",
                 "decay_rate_mhz", "lifetime_ns", "participation_ratio", "residual_gamma0",
                 "symmetry"])
-    pr = 1.0 / np.sum(np.abs(ch.vectors) ** 4, axis=0)
+    pr = ch.participation_ratio
     for r in range(len(ch.eigenvalues)):
         g, sft = float(ch.decay_rates[r]), float(ch.shifts[r])
         life = 1.0 / g if g > 0 else float("inf")

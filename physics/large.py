@@ -143,6 +143,12 @@ class ChosenModes:
     def shifts(self) -> np.ndarray:
         return self.eigenvalues.real
 
+    @property
+    def participation_ratio(self) -> np.ndarray:
+        """(Σ|c|²)²/Σ|c|⁴ per mode (unit-norm vectors), as :attr:`physics.modes.Modes.participation_ratio`."""
+        p = np.abs(self.vectors) ** 2
+        return p.sum(axis=0) ** 2 / np.sum(p * p, axis=0)
+
 
 def _score(w: np.ndarray, which: str, target: complex | None) -> np.ndarray:
     """Smaller is chosen first."""

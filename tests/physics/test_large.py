@@ -95,3 +95,10 @@ def test_refusals_name_the_field_and_the_numbers(monkeypatch):
     monkeypatch.setattr(large, "free_memory", lambda: 10_000)
     with pytest.raises(large.MemoryRequestError, match=r"N = 72 emitters: .* GiB are free"):
         large.chosen_modes(em, FreeSpace(), 3)
+
+
+def test_participation_ratio_of_chosen_modes_matches_the_dense_one():
+    em = ARRAYS["jittered"]()  # no degeneracies: each eigenvector is unique up to phase
+    ref = _dense(em)
+    got = large.chosen_modes(em, FreeSpace(), 5, "subradiant")
+    np.testing.assert_allclose(got.participation_ratio, ref.participation_ratio[:5], rtol=1e-8)

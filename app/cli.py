@@ -122,6 +122,7 @@ def _largest_block(sc) -> tuple[int, int]:
 
 
 def _bar(fraction: float, text: str) -> None:
+    """A progress bar on stderr (redrawn in place on a terminal, one line each otherwise)."""
     bar = "█" * int(30 * fraction) + "·" * (30 - int(30 * fraction))
     end = "\n" if fraction >= 1.0 else ""
     if sys.stderr.isatty():
@@ -570,14 +571,9 @@ def _progress(done: int, total: int, seconds: float) -> None:
     """A progress bar on stderr with the time remaining (a line per 10 % when not a terminal)."""
     frac = done / total if total else 1.0
     left = seconds * (1.0 - frac) / frac if frac > 0 else float("nan")
-    bar = "█" * int(30 * frac) + "·" * (30 - int(30 * frac))
-    text = (f"[{bar}] {100 * frac:5.1f} % {done}/{total} realisations · {seconds:.1f} s · "
-            f"~{left:.0f} s left")
-    if sys.stderr.isatty():
-        print("\r" + text, end="" if done < total else "\n", file=sys.stderr, flush=True)
-    elif int(10 * frac) != getattr(_progress, "last", -1) or done == total:
+    if sys.stderr.isatty() or int(10 * frac) != getattr(_progress, "last", -1) or done == total:
         _progress.last = int(10 * frac)
-        print(text, file=sys.stderr, flush=True)
+        _bar(frac, f"{done}/{total} realisations · {seconds:.1f} s · ~{left:.0f} s left")
 
 
 def cmd_sweep(args) -> int:

@@ -461,8 +461,8 @@ class ExplorerState(param.Parameterized):
         # a drawn edit (``positions`` given) is the realised arrangement: no more imperfections
         imperfect = not edited and (self.filling < 1.0
                                     or any((self.jitter_x, self.jitter_y, self.jitter_z)))
-        if imperfect and self._seed is None:
-            self._seed = int(np.random.SeedSequence().entropy % 2 ** 32)  # kept for the session
+        if imperfect:
+            self._ensure_seed()
         if self._seed is not None:
             doc["imperfections"] = {"seed": self._seed}
         if imperfect:
@@ -914,6 +914,12 @@ class ExplorerState(param.Parameterized):
             self.bands = br
 
     # ------------------------------------------------------------ ensembles and sweeps
+    def _ensure_seed(self) -> int:
+        """This session's random seed, drawn once and then kept (and saved with the scenario)."""
+        if self._seed is None:
+            self._seed = int(np.random.SeedSequence().entropy % 2 ** 32)
+        return self._seed
+
     def sweep_plan(self):
         """The sweep described by the inputs, as an app.sweeps.Plan (raises ValueError)."""
         from physics.ensembles import FigureRequest
@@ -923,9 +929,7 @@ class ExplorerState(param.Parameterized):
         doc = self._document()
         paths = SWEEP_PARAMETERS[self.sweep_vary]
         imp = doc.setdefault("imperfections", {})
-        if self._seed is None:
-            self._seed = int(np.random.SeedSequence().entropy % 2 ** 32)
-        imp["seed"] = self._seed
+        imp["seed"] = self._ensure_seed()
         axes = ()
         if paths is not None:
             if paths[0].startswith("imperfections.jitter"):

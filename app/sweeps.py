@@ -43,7 +43,8 @@ from typing import Any, Callable
 import numpy as np
 
 from physics import scenario as scn
-from physics.ensembles import FigureRequest, power_law_fit, realisation_figures, summarise
+from physics.ensembles import (FigureRequest, power_law, power_law_fit, realisation_figures,
+                               summarise)
 
 __all__ = ["Axis", "Plan", "parse_axis", "run_plan", "RunReport", "summary_rows", "estimate_seconds",
            "MAX_REALISATIONS", "MAX_POINTS", "SweepError"]
@@ -333,15 +334,24 @@ class RunReport:
     where: str = ""
 
 
+def local_cluster(workers: int):
+    """A Dask cluster on this machine: one single-threaded worker process per core asked for.
+
+    Loopback only; its HTTP status server gets a free port (never a fixed 8787).
+    """
+    from dask.distributed import LocalCluster
+
+    return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                        host="127.0.0.1", dashboard_address="127.0.0.1:0",
+                        scheduler_kwargs={"dashboard": False}, silence_logs=40)
+
+
 def _client(scheduler: str | None, workers: int | None):
-    from dask.distributed import Client, LocalCluster
+    from dask.distributed import Client
 
     if scheduler in (None, "local"):
         n = workers or os.cpu_count() or 1
-        # loopback only; the HTTP status server gets a free port (never a fixed 8787)
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                               scheduler_kwargs={"dashboard": False}, silence_logs=40)
+        cluster = local_cluster(n)
         return Client(cluster), cluster, f"local Dask cluster, {n} worker processes"
     client = Client(scheduler, timeout="10s")
     n = len(client.scheduler_info().get("workers", {}))
@@ -531,7 +541,7 @@ def plot_png(plan: Plan, summary: list[dict], figure: str, path: str | Path,
                            f"mean of {plan.realisations} realisations ± standard error"))
         if fit is not None:
             xx = np.geomspace(x.min(), x.max(), 100)
-            ax.plot(xx, fit["prefactor"] * xx ** fit["exponent"], color="#ef6c00",
+            ax.plot(xx, power_law(fit, xx), color="#ef6c00",
                     label=f"fit ∝ x^({fit['exponent']:.3f} ± {fit['exponent_error']:.3f})")
             ax.set_xscale("log")
             ax.set_yscale("log")

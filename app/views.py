@@ -17,6 +17,7 @@ from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, FixedTicker
 from bokeh.palettes import Category10, Cividis256, Inferno256
 from bokeh.plotting import figure
 
+from physics.ensembles import power_law
 from physics.environment import parts_of
 from physics.geometry import nearest_neighbour_distance
 from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
@@ -61,6 +62,15 @@ def _fmt(value: float, unit: str) -> str:
     if not np.isfinite(value):
         return "∞"
     return f"{value:.4g} {unit}"
+
+
+def _select_tapped(state: ExplorerState, source: ColumnDataSource, indices) -> None:
+    """A tapped point selects its mode (column "mode"); the Bokeh selection is cleared."""
+    if not indices:
+        return
+    mode = int(source.data["mode"][indices[0]])
+    source.selected.indices = []
+    state.selected_mode = mode
 
 
 class SpectrumView:
@@ -156,11 +166,7 @@ class SpectrumView:
         self.marker.data = dict(x=[self.source.data["x"][k]], y=[self.source.data["y"][k]])
 
     def _on_tap(self, attr, old, new) -> None:
-        if not new:
-            return
-        mode = int(self.source.data["mode"][new[0]])
-        self.source.selected.indices = []
-        self.state.selected_mode = mode
+        _select_tapped(self.state, self.source, new)
 
 
 class ArrayView:
@@ -730,8 +736,8 @@ class BandsView:
         band, k = self._selected_band()
         _, _, mp = self.figures
         if br.map is not None:
+            # NaN outside the zone stays NaN (transparent)
             img = np.log10(np.maximum(br.map[2][min(band, br.map[2].shape[0] - 1)], 1e-300))
-            img = np.where(np.isfinite(br.map[2][min(band, br.map[2].shape[0] - 1)]), img, np.nan)
             self.map_source.data = dict(self.map_source.data, image=[img])
             mp.title.text = f"Band {band} over the Brillouin zone"
         if k is None:
@@ -758,11 +764,7 @@ class BandsView:
             f"Its k lies {pl['off_path'][k] / (2 * np.pi):.3f} k0 from the path drawn.")
 
     def _on_tap(self, attr, old, new) -> None:
-        if not new:
-            return
-        mode = int(self.finite.data["mode"][new[0]])
-        self.finite.selected.indices = []
-        self.state.selected_mode = mode
+        _select_tapped(self.state, self.finite, new)
 
 
 class SweepView:
@@ -832,7 +834,7 @@ class SweepView:
                         if plan.realisations > 1 else f"{label}: one realisation per value")
         if sw.fit is not None and len(x) > 1:
             xx = np.geomspace(x.min(), x.max(), 60)
-            self.fit.data = dict(x=xx, y=conv(sw.fit["prefactor"] * xx ** sw.fit["exponent"]))
+            self.fit.data = dict(x=xx, y=conv(power_law(sw.fit, xx)))
         else:
             self.fit.data = dict(x=[], y=[])
         if sw.histogram is not None:

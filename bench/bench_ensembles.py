@@ -70,8 +70,6 @@ def main() -> None:
     ap.add_argument("--realisations", type=int, default=200)
     ap.add_argument("--size", type=int, default=20)
     args = ap.parse_args()
-    from dask.distributed import LocalCluster
-
     print(f"Choir ensemble benchmark: {args.realisations} realisations of a jittered "
           f"{args.size} × {args.size} array (eigenvalues, probe-free figures)")
     print(f"  date: {_dt.datetime.now(_dt.timezone.utc).isoformat(timespec='seconds')}")
@@ -83,9 +81,7 @@ def main() -> None:
     times = {}
     for workers in (1, 2):
         t0 = time.perf_counter()
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                               host="127.0.0.1", dashboard_address="127.0.0.1:0",
-                               scheduler_kwargs={"dashboard": False}, silence_logs=40)
+        cluster = sweeps.local_cluster(workers)
         start = time.perf_counter() - t0
         try:
             t, tasks = engine(plan, cluster.scheduler_address)
@@ -98,9 +94,7 @@ def main() -> None:
           f"(ideal 2x on {os.cpu_count()} cores)")
     tiny = Plan(jittered(2), (), 200, FigureRequest(spectrum=False))
     tiny_loop = loop(tiny)
-    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                           dashboard_address="127.0.0.1:0", scheduler_kwargs={"dashboard": False},
-                           silence_logs=40)
+    cluster = sweeps.local_cluster(2)
     try:
         old = sweeps.TASK_SECONDS
         sweeps.TASK_SECONDS = 1e-9  # one realisation per task: measures the overhead

@@ -32,6 +32,7 @@ from .driving import probe_scan, scan_signal
 from .hamiltonian import coupling_matrix
 
 __all__ = ["FigureRequest", "FIGURES", "realisation_figures", "summarise", "power_law_fit",
+           "power_law",
            "log_histogram"]
 
 #: Every per-realisation figure, with its unit.
@@ -155,6 +156,11 @@ def power_law_fit(x, y, sem=None) -> dict[str, float]:
     return dict(exponent=float(p), exponent_error=float(np.sqrt(cov[0, 0])),
                 prefactor=float(np.exp(lna)), prefactor_error=float(np.exp(lna) * np.sqrt(cov[1, 1])),
                 weighted=bool(weighted))
+
+
+def power_law(fit: dict[str, float], x) -> np.ndarray:
+    """The fitted power law A x^p of :func:`power_law_fit` at ``x``."""
+    return fit["prefactor"] * np.asarray(x, dtype=float) ** fit["exponent"]
 
 
 def log_histogram(rates, bins: int = 40, floor: float = 1e-12) -> tuple[np.ndarray, np.ndarray]:

@@ -29,6 +29,10 @@ class ManualRunner:
         job, done = self.jobs.pop(k)
         done(job())
 
+    def solves(self) -> list[int]:
+        """Indices of the waiting solve jobs (the closures call app.jobs.solve)."""
+        return [i for i, (job, _) in enumerate(self.jobs) if "solve" in job.__code__.co_names]
+
 
 def test_every_parameter_documents_its_unit_and_bounds():
     """STYLE: every parameter has a doc that states its unit, numbers have bounds."""
@@ -79,17 +83,38 @@ def test_spacing_change_recomputes_and_moves_the_spectrum():
     assert np.max(np.abs(st.result.modes.eigenvalues - before)) > 1e-3
 
 
-def test_a_stale_result_never_overwrites_a_newer_one():
+def test_a_drag_solves_the_first_and_the_last_step_only():
+    """Latest request wins: steps made while a solve runs replace each other, none queues."""
     runner = ManualRunner()
     st = ExplorerState(runner=runner)
-    st.solve()  # job 0: spacing 0.3
-    st.spacing = 0.5  # job 1
-    runner.release(1)  # the newer finishes first...
-    newest = st.result
-    assert newest.scenario.geometry[-1] == ("spacing", 0.5)
-    runner.release(0)  # ...then the older one arrives and must be dropped
-    assert st.result is newest
-    assert st.busy is False or runner.jobs  # the mode job may still be pending
+    st.solve()  # running: spacing 0.3
+    for a in (0.31, 0.32, 0.33, 0.34):  # a drag while it runs
+        st.spacing = a
+    assert len(runner.jobs) == 1  # only the running solve was handed to the runner
+    runner.release(0)  # 0.3 finishes: shown (a newer step waits), and the newest starts
+    assert st.result.scenario.geometry[-1] == ("spacing", 0.3) and st.busy
+    assert len(runner.solves()) == 1
+    runner.release(runner.solves()[0])
+    assert st.result.scenario.geometry[-1] == ("spacing", 0.34) and not st.busy
+    while runner.jobs:  # mode figures of 0.3 (overtaken) and of 0.34
+        runner.release(0)
+    assert st.mode_result is not None
+
+
+def test_a_cancelled_or_overtaken_result_is_never_shown():
+    """A result older than the one on screen is dropped (cache hit while a solve runs)."""
+    runner = ManualRunner()
+    st = ExplorerState(scn.load(ROOT / "scenarios" / "nonagon_ring.json"), runner=runner)
+    st.solve()
+    runner.release(0)
+    first = st.result
+    while runner.jobs:
+        runner.release(0)
+    st.n = 12  # a slow solve starts …
+    st.n = first.emitters.n  # … and the user goes back: served from the cache at once
+    assert st.result.modes is first.modes
+    runner.release(0)  # the n = 12 solve arrives late and must not replace it
+    assert st.result.modes is first.modes and not st.busy
 
 
 def test_edit_adds_an_emitter_and_undo_restores_the_lattice():
@@ -219,6 +244,8 @@ def test_bands_are_computed_only_while_open_and_follow_the_array():
 def test_probe_analysis_compares_with_the_infinite_array():
     st = ExplorerState(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
     st.solve()
+    assert st.analysis is None  # the probe section is closed: nothing computed
+    st.probe_visible = True
     sheet = st.analysis.sheet
     assert sheet is not None and np.max(sheet["R"]) > 0.99  # the infinite sheet is a mirror
     st.apply_scenario(scn.load(ROOT / "scenarios" / "nonagon_ring.json"))
@@ -284,7 +311,7 @@ def test_a_sweep_can_be_cancelled_and_keeps_what_finished():
 
 
 def test_large_arrays_show_eigenvalues_first_then_vectors(monkeypatch):
-    import app.state as state_module
+    import app.jobs as state_module
     from app.views import ArrayView, SpectrumView, mode_card_html
 
     monkeypatch.setattr(state_module, "LAZY_FROM", 50)
@@ -318,11 +345,11 @@ def test_a_scenario_solved_before_comes_from_the_cache():
     while runner.jobs:
         runner.release(0)
     st.n = first.emitters.n  # back: no solve job, the same modes at once
-    assert st.result.modes is first.modes and st.result.generation == st._generation
+    assert st.result.modes is first.modes and runner.solves() == []
 
 
 def test_eigenvectors_beyond_the_explorer_keep_the_spectrum_and_say_why(monkeypatch):
-    import app.state as state_module
+    import app.jobs as state_module
 
     monkeypatch.setattr(state_module, "LAZY_FROM", 50)
     monkeypatch.setattr(state_module, "EXPLORER_BLOCK_LIMIT", 40)

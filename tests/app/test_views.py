@@ -181,7 +181,9 @@ def test_sliders_follow_the_drag_for_small_arrays_and_the_release_for_large():
 
 def test_probe_panel_follows_its_controls():
     page = build_explorer(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
-    st, probe = page.explorer_state, page.explorer_views["probe"]
+    st = page.explorer_state
+    assert st.analysis is None  # nothing computed while the section is closed
+    probe = page.explorer_open("probe")
     an = st.analysis
     assert an.probe.kind == "gaussian_beam" and len(probe.spec.data["x"]) == 201
     # a 16×16 array at 0.75 λ0 reflects most of a 2 λ0 beam on resonance (mirror-like
@@ -205,7 +207,10 @@ def test_probe_settings_travel_in_the_scenario_file():
     st.param.update(probe_kind="gaussian_beam", probe_waist=1.3, probe_detuning_min=-2.0,
                     probe_detuning_max=4.0, probe_polarization="y")
     text = page.explorer_views["widgets"]["download"].callback().getvalue()
-    other = build_explorer(scn.loads(text)).explorer_state
+    page.explorer_open("probe")
+    other_page = build_explorer(scn.loads(text))
+    other_page.explorer_open("probe")
+    other = other_page.explorer_state
     for name in ("probe_kind", "probe_waist", "probe_detuning_min", "probe_detuning_max",
                  "probe_polarization"):
         assert getattr(other, name) == getattr(st, name), name
@@ -214,7 +219,7 @@ def test_probe_settings_travel_in_the_scenario_file():
 
 def test_decay_plot_splits_the_emission_between_channels():
     page = build_explorer(scn.load(ROOT / "scenarios" / "fibre_chain_partly_chiral.json"))
-    probe = page.explorer_views["probe"]
+    probe = page.explorer_open("probe")
     names = probe.channels.data["name"]
     assert "free space" in names and any("guided" in n for n in names)
     # the channels add up to the total emitted power at every time (exact identity)

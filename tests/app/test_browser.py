@@ -1,163 +1,24 @@
 """The explorer in a real browser: Playwright driving Debian's headless Chromium.
 
-Recipe (flags, routing of outside requests, clicking glyphs through BokehJS)
-from the project's browser-test notes; common practice, no source.  These
-tests run in CI (`.ci/run` installs Chromium); locally they are skipped when
-no Chromium is installed, and they fail in CI if it is missing.
+These tests run in CI (`.ci/run` installs Chromium); locally they are skipped
+when no Chromium is installed, and they fail in CI if it is missing.  Shared
+support (server start on /liveness, the Page wrapper, fixtures) is in
+``browser_support``; common practice, no source.
 """
 from __future__ import annotations
 
 import json
-import os
-import shutil
-import socket
-import subprocess
 import sys
 import time
-import urllib.request
-from pathlib import Path
 
 import pytest
 
-ROOT = Path(__file__).parents[2]
-ARTIFACTS = ROOT / "artifacts"
-CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
-FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-         "--disable-background-networking", "--disable-component-update", "--disable-sync",
-         "--disable-dev-shm-usage"]
+from browser_support import (ARTIFACTS, ROOT, Page, free_port, require_chromium, serve_command,
+                              start_server, stop_server)
 
-if CHROMIUM is None:
-    if os.environ.get("CI"):
-        raise RuntimeError("Chromium is missing in CI: .ci/run should have installed it")
-    pytest.skip("no chromium on this machine", allow_module_level=True)
-
-sync_api = pytest.importorskip("playwright.sync_api")
+require_chromium()
 
 pytestmark = pytest.mark.browser
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
-
-
-def _start(cmd: list[str], url: str, name: str | None = None) -> subprocess.Popen:
-    ARTIFACTS.mkdir(exist_ok=True)
-    log = open(ARTIFACTS / (name or f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log"), "wb")
-    proc = subprocess.Popen(cmd, cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
-                            env={**os.environ, "OPENBLAS_NUM_THREADS": "1"})
-    log.close()  # the child keeps its own handle
-    deadline = time.time() + 60
-    while time.time() < deadline:
-        if proc.poll() is not None:
-            raise RuntimeError(f"server exited: {Path(log.name).read_text()[-2000:]}")
-        try:
-            with urllib.request.urlopen(url, timeout=2) as r:
-                if r.status == 200:
-                    return proc
-        except OSError:
-            time.sleep(0.3)
-    proc.kill()
-    proc.wait(timeout=20)
-    raise RuntimeError("server did not answer within 60 s")
-
-
-@pytest.fixture(scope="module")
-def server():
-    port = _free_port()
-    cmd = [sys.executable, "-m", "app.cli", "serve", "--autosave-dir",
-           str(ARTIFACTS / "autosave"), "--port", str(port), "scenarios/nonagon_ring.json"]
-    proc = _start(cmd, f"http://127.0.0.1:{port}/")
-    yield f"http://127.0.0.1:{port}/"
-    proc.terminate()
-    proc.wait(timeout=20)
-    log = (ARTIFACTS / f"server-{Path(cmd[-1]).stem}-{cmd[2]}.log").read_text()
-    assert "Traceback" not in log, log[-3000:]  # the server must never fail behind the page
-
-
-@pytest.fixture(scope="module")
-def browser():
-    with sync_api.sync_playwright() as p:
-        b = p.chromium.launch(executable_path=CHROMIUM, args=FLAGS)
-        yield b
-        b.close()
-
-
-class Page:
-    """A browser tab on the explorer that records console errors."""
-
-    def __init__(self, browser, url: str) -> None:
-        self.ctx = browser.new_context(viewport={"width": 1366, "height": 900},
-                                       accept_downloads=True)
-        # the page must work offline: answer every outside request with nothing
-        origin = "/".join(url.split("/")[:3]) + "/"
-        self.ctx.route("**/*", lambda r: r.continue_() if r.request.url.startswith(origin)
-                       else r.fulfill(status=200, body=""))
-        self.page = self.ctx.new_page()
-        self.errors: list[str] = []
-        self.page.on("console", lambda m: self.errors.append(m.text) if m.type == "error" else None)
-        self.page.on("pageerror", lambda e: self.errors.append(str(e)))
-        self.page.goto(url, wait_until="domcontentloaded")
-        self.wait_for_points(lambda n: n > 0)
-
-    def js(self, body: str, arg=None):
-        return self.page.evaluate(f"(arg) => {{ const doc = Bokeh.documents[0]; {body} }}", arg)
-
-    def data(self, name: str, column: str) -> list:
-        return self.js(f"return Array.from(doc.get_model_by_name('{name}').data['{column}'])")
-
-    def wait_for_points(self, ok, timeout: float = 60.0) -> int:
-        deadline = time.time() + timeout
-        while time.time() < deadline:
-            try:
-                n = self.js("const s = doc && doc.get_model_by_name('choir-spectrum-points');"
-                            "return s ? s.data.x.length : -1")
-            except sync_api.Error:
-                n = -1
-            if n >= 0 and ok(n):
-                return n
-            time.sleep(0.2)
-        raise AssertionError("spectrum did not reach the expected number of points")
-
-    def wait_for(self, body: str, arg=None, timeout: float = 60.0):
-        deadline = time.time() + timeout
-        while time.time() < deadline:
-            value = self.js(body, arg)
-            if value:
-                return value
-            time.sleep(0.2)
-        raise AssertionError(f"timed out waiting for: {body}")
-
-    def screen_xy(self, figure: str, x: float, y: float) -> tuple[float, float]:
-        return tuple(self.js(
-            f"const v = Bokeh.index.find_one(doc.get_model_by_name('{figure}'));"
-            "const r = v.canvas_view.el.getBoundingClientRect();"
-            "return [r.left + v.frame.x_scale.compute(arg[0]),"
-            "        r.top + v.frame.y_scale.compute(arg[1])]", [x, y]))
-
-    def text(self) -> str:
-        """All visible text, shadow roots included, whitespace folded."""
-        raw = self.page.evaluate(
-            "() => { const out = []; const walk = (n) => {"
-            " if (n.nodeName === 'STYLE' || n.nodeName === 'SCRIPT') return;"
-            " if (n.shadowRoot) walk(n.shadowRoot);"
-            " for (const c of n.childNodes) { if (c.nodeType === 3) out.push(c.textContent);"
-            " else walk(c); } }; walk(document.body); return out.join(' '); }")
-        return " ".join(raw.split())
-
-    def close(self) -> None:
-        self.ctx.close()
-
-
-@pytest.fixture
-def tab(browser, server):
-    t = Page(browser, server)
-    yield t
-    errors = t.errors
-    t.close()
-    assert errors == [], f"JavaScript errors: {errors}"
-
 
 
 def test_page_opens_on_the_demo_scenario_and_shows_the_caution(tab):
@@ -246,19 +107,18 @@ def test_download_and_upload_reproduce_the_state(tab, browser, server, tmp_path)
 
 
 def test_panel_serve_runs_the_same_explorer(browser):
-    port = _free_port()
+    port = free_port()
     cmd = [sys.executable, "-m", "panel", "serve", "app/serve_app.py", "--port", str(port),
            "--address", "127.0.0.1", "--allow-websocket-origin", f"127.0.0.1:{port}",
-           "--args", "scenarios/subradiant_chain.json"]
-    proc = _start(cmd, f"http://127.0.0.1:{port}/serve_app")
+           "--liveness", "--args", "scenarios/subradiant_chain.json"]
+    proc = start_server(cmd, f"http://127.0.0.1:{port}/", "server-panel-serve.log")
     try:
         t = Page(browser, f"http://127.0.0.1:{port}/serve_app")
         assert t.wait_for_points(lambda n: n == 60) == 60
         assert t.errors == []
         t.close()
     finally:
-        proc.terminate()
-        proc.wait(timeout=20)
+        stop_server(proc, "server-panel-serve.log")
 
 
 def test_a_link_reopens_the_same_view(browser, server):
@@ -312,6 +172,8 @@ def test_each_environment_opens_from_a_file(tab, name, words):
 
 
 def test_probe_panel_shows_a_spectrum_a_map_and_a_decay(tab):
+    assert tab.js("return doc.get_model_by_name('choir-probe-spectrum') === null")  # not built
+    tab.page.get_by_text("Probe and decay (open to compute)").click()
     n = tab.wait_for("const s = doc.get_model_by_name('choir-probe-spectrum');"
                      "return s && s.data.x.length")
     assert n == 201
@@ -443,11 +305,10 @@ def test_a_drawn_array_survives_a_reload(tab):
 
 
 def test_a_drawn_array_survives_a_server_restart(browser, tmp_path):
-    port = _free_port()
-    cmd = [sys.executable, "-m", "app.cli", "serve", "--autosave-dir", str(tmp_path),
-           "--port", str(port), "scenarios/nonagon_ring.json"]
+    port = free_port()
+    cmd = serve_command(port, "--autosave-dir", str(tmp_path), "scenarios/nonagon_ring.json")
     base = f"http://127.0.0.1:{port}/"
-    proc = _start(cmd, base, "server-restart-1.log")
+    proc = start_server(cmd, base, "server-restart-1.log")
     try:
         t = Page(browser, base)
         _draw_one_emitter(t, 9)
@@ -457,16 +318,14 @@ def test_a_drawn_array_survives_a_server_restart(browser, tmp_path):
             time.sleep(0.2)
         t.close()
     finally:
-        proc.terminate()
-        proc.wait(timeout=20)
+        stop_server(proc, "server-restart-1.log")
     saved = list(tmp_path.glob("*.json"))
     assert len(saved) == 1 and saved[0].stem in url
-    proc = _start(cmd, base, "server-restart-2.log")  # back: the same address restores the work
+    proc = start_server(cmd, base, "server-restart-2.log")  # back: the address restores the work
     try:
         t = Page(browser, url)
         assert t.wait_for_points(lambda n: n == 10) == 10
         assert t.errors == []
         t.close()
     finally:
-        proc.terminate()
-        proc.wait(timeout=20)
+        stop_server(proc, "server-restart-2.log")

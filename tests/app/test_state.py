@@ -360,3 +360,17 @@ def test_eigenvectors_beyond_the_explorer_keep_the_spectrum_and_say_why(monkeypa
     assert "choir solve --modes K" in st.message
     st.nx = 5  # the session stays usable: a smaller array solves fully
     assert st.result.modes.has_vectors and st.message == ""
+
+
+def test_a_closed_page_starts_no_more_work():
+    """After the page is gone, waiting jobs are dropped and nothing new is handed out."""
+    runner = ManualRunner()
+    runner.close = lambda: None
+    st = ExplorerState(runner=runner)
+    st.solve()
+    st.spacing = 0.4  # waits behind the running solve
+    st.close()
+    runner.release(0)  # the running solve ends: its value is dropped, the waiting one never runs
+    assert st.result is None and runner.jobs == []
+    st.spacing = 0.5
+    assert runner.jobs == []

@@ -225,3 +225,19 @@ def test_decay_plot_splits_the_emission_between_channels():
     # the channels add up to the total emitted power at every time (exact identity)
     total = np.sum(np.array(probe.channels.data["ys"]), axis=0)
     np.testing.assert_allclose(total, probe.decay.data["w"], rtol=1e-9)
+
+
+def test_sections_are_built_once_when_first_opened():
+    """Collapsed sections build nothing until opened, and only once (common practice, no source)."""
+    page = build_explorer(scn.load(ROOT / "scenarios" / "mirror_square_16x16.json"))
+    st, views = page.explorer_state, page.explorer_views
+    assert "probe" not in views and "bands" not in views and "sweep" not in views
+    assert st.analysis is None and st.bands is None
+    bands = page.explorer_open("bands")
+    card = views["sections"]["bands"].card
+    assert st.bands is not None and len(bands.points.data["s"]) > 0
+    card.collapsed = True  # closed: the figures stay, nothing is recomputed
+    st.spacing = 0.7
+    assert st.bands.lattice.a1[0] != pytest.approx(0.7)
+    card.collapsed = False  # opened again: the same view, brought up to date
+    assert views["bands"] is bands and st.bands.lattice.a1[0] == pytest.approx(0.7)

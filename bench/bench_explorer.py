@@ -38,7 +38,7 @@ from threadpoolctl import threadpool_info, threadpool_limits
 sys.path.insert(0, str(Path(__file__).parents[1]))
 
 from app.explorer import build_explorer  # noqa: E402
-from app.state import FAR_FIELD_PIXELS  # noqa: E402
+from app.jobs import FAR_FIELD_PIXELS  # noqa: E402
 from physics.far_field import angular_order, cap_grid  # noqa: E402
 from physics.free_space import K0, greens_tensor  # noqa: E402
 
@@ -86,6 +86,7 @@ def main() -> None:
         rows = [(nx, kind) for nx in args.sizes for kind in ("square", "jittered")]
         for nx, kind in rows:
             page = build_explorer()
+            page.explorer_open("probe")  # 'with probe' times the open probe section too
             st = page.explorer_state
             st.param.update(nx=nx, ny=nx, spacing=0.3, dipole="x")
             if kind == "jittered":

@@ -187,11 +187,14 @@ def probe_analysis(res: Result, probe: Probe, initial: str, mode: int, t_max: fl
     """Probe scan, the field map at its peak, a decay curve and the infinite sheet's reflection."""
     em, env = res.emitters, res.environment
     note = ""
-    H = coupling_matrix(em, env)
+    H = coupling_matrix(em, env)  # built once: the scan and the decay curve share it
+    # the solved modes replace linear solves and exponentials when well conditioned
+    # (physics.driving.eigenbasis_usable); a defective matrix keeps the exact paths
+    modes = None if res.defective else res.modes
     scan = signal = fit = fmap = None
     name, where = "", 0.0
     try:
-        scan = probe_scan(em, env, probe)
+        scan = probe_scan(em, env, probe, coupling=H, modes=modes)
     except ValueError as exc:
         note = str(exc).split(": ", 1)[-1]
     if scan is not None:
@@ -217,7 +220,7 @@ def probe_analysis(res: Result, probe: Probe, initial: str, mode: int, t_max: fl
     else:
         first = upstream_emitter(em, env)  # emitter 0 without a waveguide
         c0, label = single_emitter_state(em.n, first), f"emitter {first} excited"
-    times, amps = evolve(H, c0, t_max, DECAY_POINTS)
+    times, amps = evolve(H, c0, t_max, DECAY_POINTS, modes=modes)
     decay = decay_observables(H, times, amps, channels=(em, env))
     sheet = None
     if probe.kind != "guided" and res.scenario.lattice in bnd.PERIODIC_KINDS[1:]:

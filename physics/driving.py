@@ -25,6 +25,12 @@ computed once; each detuning is then one triangular solve, O(N²).  The Schur
 form is unitary and exists for every matrix, so this stays exact for defective
 matrices (a chiral waveguide), where an eigen-expansion fails.
 
+When the modes of H are already known and well conditioned (see
+:func:`eigenbasis_usable`), the same steady states follow from the mode
+expansion c(Δ) = −Σ_m c_m (l_m†Ω)/(λ_m − Δ): O(N²) once and O(N) per detuning
+(a single matrix product for the whole scan).  Otherwise, and always when
+no modes are given, the Schur path is used.
+
 References
 ----------
 G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed. (2013), §7.6
@@ -32,7 +38,9 @@ G. H. Golub and C. F. Van Loan, *Matrix Computations*, 4th ed. (2013), §7.6
 (input–output relation for emitter arrays); S. J. van Enk and H. J. Kimble,
 Phys. Rev. A 63, 023809 (2001) (a dipole coupled to a focused Gaussian beam);
 J. D. Jackson, *Classical Electrodynamics*, 3rd ed. (1999), §10.11 (optical
-theorem).
+theorem); L. N. Trefethen and M. Embree, *Spectra and Pseudospectra*
+(Princeton, 2005), ch. 52 (non-normal matrices: the eigenvector condition
+number bounds how much an eigen-expansion amplifies round-off).
 """
 from __future__ import annotations
 
@@ -43,10 +51,12 @@ import numpy as np
 import scipy.linalg
 from scipy.optimize import OptimizeWarning, curve_fit
 
-from .free_space import K0, greens_tensor
+from .free_space import K0, greens_sum
 from .geometry import MIN_DISTANCE, Emitters
 
 __all__ = [
+    "EIGENBASIS_PETERMANN_MAX",
+    "eigenbasis_usable",
     "steady_states",
     "plane_wave_field",
     "gaussian_beam_field",
@@ -66,7 +76,45 @@ __all__ = [
 ]
 
 
-def steady_states(H: np.ndarray, drive: np.ndarray, detunings: np.ndarray) -> np.ndarray:
+#: Largest Petermann factor for which mode expansions replace the exact solvers.
+#: With l_m†c_m = 1 and unit c_m, K_m = |l_m|²; V has ‖V‖_F² = N and V⁻¹ = L† has
+#: ‖V⁻¹‖_F² = Σ_m K_m, so the condition number of V is at most N·√(max K).  An
+#: expansion loses about that factor more digits than a backward-stable Schur solve
+#: or Taylor exponential: below ~1e-16·400·√1e3 ≈ 1e-12 at N = 400 for this bound,
+#: well inside the 1e-10 agreement the tests check (common practice, no source).
+#: Matrices at or near an exceptional point (a chiral waveguide: K → ∞) fail it.
+EIGENBASIS_PETERMANN_MAX = 1e3
+
+
+def eigenbasis_usable(modes, n: int) -> bool:
+    """Whether ``modes`` can replace linear solves and exponentials for an (n, n) matrix.
+
+    True when the modes carry eigenvectors (not a spectrum alone), match the
+    size, and every Petermann factor is finite and at most
+    :data:`EIGENBASIS_PETERMANN_MAX` (the eigenvector matrix is then well
+    conditioned).  The caller guarantees that ``modes`` are those of the
+    matrix in question.
+
+    Parameters
+    ----------
+    modes : physics.modes.Modes or None
+    n : int
+        Size of the coupling matrix.
+
+    References
+    ----------
+    Trefethen & Embree, *Spectra and Pseudospectra* (2005), ch. 52;
+    K. Petermann, IEEE J. Quantum Electron. 15, 566 (1979).
+    """
+    if modes is None or getattr(modes, "vectors", None) is None \
+            or getattr(modes, "left_vectors", None) is None or modes.n != n:
+        return False
+    k = np.asarray(modes.petermann)
+    return bool(np.all(np.isfinite(k)) and np.max(k) <= EIGENBASIS_PETERMANN_MAX)
+
+
+def steady_states(H: np.ndarray, drive: np.ndarray, detunings: np.ndarray, *,
+                  modes=None) -> np.ndarray:
     """Steady-state amplitudes c(Δ) solving (H − Δ) c = −Ω for every detuning.
 
     Parameters
@@ -75,17 +123,32 @@ def steady_states(H: np.ndarray, drive: np.ndarray, detunings: np.ndarray) -> np
     drive : (N,) complex ndarray
         Ω_j [Γ0].
     detunings : (D,) float ndarray [Γ0]
+    modes : physics.modes.Modes, optional
+        The modes of this very H.  When :func:`eigenbasis_usable` accepts
+        them, c(Δ) = −V diag(1/(λ − Δ)) V⁻¹ Ω with V⁻¹ = L† (O(N²) + O(DN²)
+        in one matrix product); otherwise the exact Schur path is used.
 
     Returns
     -------
     (D, N) complex ndarray
+
+    References
+    ----------
+    Golub & Van Loan, *Matrix Computations* (2013), §7.6 (Schur path);
+    the expansion is the spectral decomposition of (H − Δ)⁻¹ for a
+    diagonalisable H (same book, §7.1).
     """
     H = np.asarray(H, dtype=complex)
+    d = np.asarray(detunings, dtype=float)
+    if eigenbasis_usable(modes, H.shape[0]):
+        coeff = modes.left_vectors.conj().T @ np.asarray(drive, dtype=complex)
+        weights = coeff[None, :] / (d[:, None] - modes.eigenvalues[None, :])
+        return weights @ modes.vectors.T
     T, Z = scipy.linalg.schur(H, output="complex")
     rhs = Z.conj().T @ (-np.asarray(drive, dtype=complex))
     eye = np.eye(H.shape[0])
-    out = np.empty((len(detunings), H.shape[0]), dtype=complex)
-    for k, delta in enumerate(np.asarray(detunings, dtype=float)):
+    out = np.empty((len(d), H.shape[0]), dtype=complex)
+    for k, delta in enumerate(d):
         out[k] = Z @ scipy.linalg.solve_triangular(T - delta * eye, rhs, check_finite=False)
     return out
 
@@ -165,24 +228,14 @@ def drive_from_field(em: Emitters, field: np.ndarray) -> np.ndarray:
 def scattered_field(em: Emitters, amplitudes: np.ndarray, points: np.ndarray) -> np.ndarray:
     """E_sc(r) = −(3π/k0) Σ_j G(r − r_j)·d_j c_j at points (M, 3) → (M, 3) complex.
 
-    Points closer than MIN_DISTANCE to an emitter are returned as NaN (the
-    field of a point dipole diverges there).
+    G·d is contracted analytically (:func:`physics.free_space.greens_sum`), no
+    3×3 tensors are formed.  Points closer than MIN_DISTANCE to an emitter are
+    returned as NaN (the field of a point dipole diverges there).
     """
     pts = np.asarray(points, dtype=float)
-    c = np.asarray(amplitudes, dtype=complex)
-    out = np.zeros((pts.shape[0], 3), dtype=complex)
-    near = np.zeros(pts.shape[0], dtype=bool)
-    src = c[:, None] * em.dipoles  # (N, 3)
-    for start in range(0, pts.shape[0], 256):
-        block = pts[start:start + 256]
-        r = block[:, None, :] - em.positions[None, :, :]  # (m, N, 3)
-        dist = np.linalg.norm(r, axis=-1)
-        bad = dist < MIN_DISTANCE
-        r[bad] = (1.0, 0.0, 0.0)
-        G = greens_tensor(r)  # (m, N, 3, 3)
-        G[bad] = 0.0
-        out[start:start + 256] = -(3.0 * np.pi / K0) * np.einsum("mnab,nb->ma", G, src)
-        near[start:start + 256] = bad.any(axis=1)
+    src = np.asarray(amplitudes, dtype=complex)[:, None] * em.dipoles  # (N, 3)
+    field, near = greens_sum(pts, em.positions, src, min_distance=MIN_DISTANCE)
+    out = -(3.0 * np.pi / K0) * field
     out[near] = np.nan
     return out
 
@@ -201,7 +254,7 @@ def scattered_power(H: np.ndarray, amplitudes: np.ndarray) -> np.ndarray:
     H = np.asarray(H, dtype=complex)
     gamma = 1j * (H - H.conj().T)
     c = np.atleast_2d(np.asarray(amplitudes, dtype=complex))
-    out = np.real(np.einsum("di,ij,dj->d", c.conj(), gamma, c))
+    out = np.real(np.sum(c.conj() * (c @ gamma.T), axis=1))
     return out if np.ndim(amplitudes) == 2 else out[0]
 
 
@@ -326,7 +379,8 @@ def _guide(environment):
     return guides[0]
 
 
-def probe_scan(em: Emitters, environment, probe: Probe, detunings=None) -> dict[str, np.ndarray]:
+def probe_scan(em: Emitters, environment, probe: Probe, detunings=None, *,
+               coupling: np.ndarray | None = None, modes=None) -> dict[str, np.ndarray]:
     """Everything a detuning scan measures, as arrays over ``probe.detunings``
     (or over ``detunings`` [Γ0] when given, e.g. a single detuning).
 
@@ -335,17 +389,21 @@ def probe_scan(em: Emitters, environment, probe: Probe, detunings=None) -> dict[
     (extinction per incident flux).  Gaussian beam (from −z, going +z) and
     guided probes: complex "t" and "r" into the probe's own mode and the
     reversed one, per unit incident photon flux.
+
+    ``coupling`` is the (N, N) matrix [Γ0] of ``em`` in ``environment`` when the
+    caller has it already (it is not built again); ``modes`` are its modes,
+    used for the steady states when well conditioned (:func:`steady_states`).
     """
     from .hamiltonian import coupling_matrix
 
-    H = coupling_matrix(em, environment)
+    H = coupling_matrix(em, environment) if coupling is None else coupling
     if probe.kind == "guided":
         guide = _guide(environment)
         drive = guide.probe(em, probe.from_end)
     else:
         drive = drive_from_field(em, probe.incident_field(em.positions))
     d = probe.detunings if detunings is None else np.atleast_1d(np.asarray(detunings, float))
-    c = steady_states(H, drive, d)
+    c = steady_states(H, drive, d, modes=modes)
     out = {"detunings": d, "amplitudes": c, "extinction": extinguished_power(drive, c),
            "scattered": scattered_power(H, c)}
     if probe.kind == "plane_wave":

@@ -1,6 +1,8 @@
 """Guided probes and time evolution without eigenvectors (also for defective matrices)."""
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 import scipy.linalg
@@ -308,3 +310,159 @@ def test_amplitude_files_are_read_or_refused_clearly(text, n, words):
     else:
         with pytest.raises(ValueError, match=words):
             read_amplitudes_csv(text, n)
+
+
+# ---------------------------------------------------------------- fast paths
+# The mode expansions (steady states, time evolution) and the contracted field sum
+# must reproduce the exact solvers: Schur solves, the Taylor-series exponential
+# action and the full 3×3 Green's tensor.  Agreement to AGREE relative (norm-wise
+# per row) is what the explorer needs; the exact paths are the reference (common
+# practice, no source).
+AGREE = 1e-10
+SCENARIOS = Path(__file__).parents[2] / "scenarios"
+
+
+def _relative(a, b):
+    a, b = np.atleast_2d(a), np.atleast_2d(b)
+    return float(np.max(np.linalg.norm(a - b, axis=1) / np.linalg.norm(b, axis=1)))
+
+
+def _jittered_square():
+    em = lattices.square(6, 6, 0.3, "x")
+    jitter = np.random.default_rng(11).normal(scale=0.01, size=em.positions.shape)
+    return Emitters(em.positions + jitter, "x"), FreeSpace()
+
+
+def _ring():
+    return lattices.ring(12, 0.25, "z"), FreeSpace()
+
+
+def _fibre_chain():
+    from physics import scenario as scn
+
+    sc = scn.load(SCENARIOS / "fibre_chain_partly_chiral.json")
+    return sc.emitters(), sc.environment_model()
+
+
+WELL_CONDITIONED = [pytest.param(_jittered_square, id="jittered-square"),
+                    pytest.param(_ring, id="ring"),
+                    pytest.param(_fibre_chain, id="fibre-partly-chiral")]
+
+
+@pytest.mark.parametrize("make", WELL_CONDITIONED)
+def test_mode_expansion_steady_states_match_the_schur_path(make):
+    from physics.driving import eigenbasis_usable
+    from physics.modes import solve_modes
+
+    em, env = make()
+    H = coupling_matrix(em, env)
+    modes = solve_modes(em, env)
+    assert eigenbasis_usable(modes, em.n)  # the fast path is really taken
+    drive = drive_from_field(em, plane_wave_field(em.positions, (0.3, 0.0, 1.0), (0, 1, 1)))
+    d = np.linspace(-6.0, 6.0, 61)
+    assert _relative(steady_states(H, drive, d, modes=modes), steady_states(H, drive, d)) < AGREE
+
+
+@pytest.mark.parametrize("make", WELL_CONDITIONED)
+def test_mode_expansion_evolution_matches_the_exponential_action(make):
+    from physics.modes import solve_modes
+
+    em, env = make()
+    H = coupling_matrix(em, env)
+    modes = solve_modes(em, env)
+    rng = np.random.default_rng(3)
+    c0 = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    times, fast = evolve(H, c0, 8.0, 41, modes=modes)
+    _, exact = evolve(H, c0, 8.0, 41)
+    # relative to the initial norm: late amplitudes are small after decay
+    assert np.max(np.linalg.norm(fast - exact, axis=1)) / np.linalg.norm(c0) < AGREE
+    np.testing.assert_allclose(fast[0], c0, rtol=AGREE)
+
+
+@pytest.mark.parametrize("make, probe", [
+    pytest.param(_jittered_square, dict(kind="gaussian_beam", waist=1.5), id="jittered-beam"),
+    pytest.param(_ring, dict(kind="plane_wave", direction=(1.0, 0.0, 0.2), polarization="z"),
+                 id="ring-plane-wave"),
+    pytest.param(_fibre_chain, dict(kind="guided"), id="fibre-guided"),
+])
+def test_probe_scan_with_modes_and_coupling_matches_the_plain_scan(make, probe):
+    from physics.driving import Probe, probe_scan
+    from physics.modes import solve_modes
+
+    em, env = make()
+    probe = Probe(points=81, **probe)
+    plain = probe_scan(em, env, probe)
+    fast = probe_scan(em, env, probe, coupling=coupling_matrix(em, env),
+                      modes=solve_modes(em, env))
+    assert plain.keys() == fast.keys()
+    assert _relative(fast["amplitudes"], plain["amplitudes"]) < AGREE
+    for key in ("extinction", "scattered", "cross_section", "t", "r"):
+        if key not in plain:
+            continue
+        scale = np.max(np.abs(plain[key]))
+        assert np.max(np.abs(fast[key] - plain[key])) < AGREE * scale, key
+
+
+def test_defective_chiral_guide_falls_back_to_the_exact_paths():
+    """The defective scenario's modes are refused, so the result is the exact one: the
+    cascaded transmission t_1(Δ)^N (Shen & Fan, Opt. Lett. 30, 2001 (2005); Lodahl et
+    al., Nature 541, 473 (2017)) and e^{−iHt}c(0) from scipy.linalg.expm (reference
+    library)."""
+    from physics import scenario as scn
+    from physics.driving import eigenbasis_usable
+    from physics.solution import solve_scenario
+
+    sol = solve_scenario(scn.load(SCENARIOS / "chiral_waveguide_defective.json"))
+    em, env, modes = sol.emitters, sol.environment, sol.modes
+    assert sol.defective and not eigenbasis_usable(modes, em.n)
+    wg = env.parts[0] if hasattr(env, "parts") else env
+    H = coupling_matrix(em, env)
+    c = steady_states(H, wg.probe(em), DETUNINGS, modes=modes)
+    np.testing.assert_array_equal(c, steady_states(H, wg.probe(em), DETUNINGS))
+    t, _ = wg.transmission(em, c)
+    t1 = (DETUNINGS - 0.5j * (1.0 - 0.1)) / (DETUNINGS + 0.5j * (1.0 + 0.1))
+    np.testing.assert_allclose(t, t1 ** em.n, atol=1e-10)
+    c0 = single_emitter_state(em.n, 0)
+    times, amps = evolve(H, c0, 5.0, 11, modes=modes)
+    for k, t_k in enumerate(times):
+        np.testing.assert_allclose(amps[k], scipy.linalg.expm(-1j * H * t_k) @ c0, atol=1e-10)
+    # what the fallback avoids: the mode expansion of this matrix is far off
+    coeff = modes.left_vectors.conj().T @ c0
+    wrong = (np.exp(-1j * times[-1] * modes.eigenvalues) * coeff) @ modes.vectors.T
+    assert not np.allclose(wrong, amps[-1], atol=1e-3)
+
+
+@pytest.mark.parametrize("make", [pytest.param(_jittered_square, id="jittered-square"),
+                                  pytest.param(_ring, id="ring")])
+def test_contracted_scattered_field_matches_the_full_tensor_sum(make):
+    """−(3π/k0) Σ_j G(r − r_j)·d_j c_j with the full tensor of greens_tensor (the
+    reference; Novotny & Hecht Eq. (8.55)) against the analytic contraction."""
+    from physics.free_space import K0, greens_tensor
+
+    em, _ = make()
+    rng = np.random.default_rng(8)
+    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    centre = em.positions.mean(axis=0)
+    pts = centre + rng.uniform(-2.5, 2.5, size=(700, 3))
+    pts[0] = em.positions[3] + (0.0, 0.0, 5e-5)  # next to an emitter: NaN
+    pts[1] = em.positions[5] + (0.0, 0.0, 0.05)  # close but allowed
+    got = scattered_field(em, c, pts)
+    r = pts[:, None, :] - em.positions[None, :, :]
+    want = -(3.0 * np.pi / K0) * np.einsum("mnab,nb->ma", greens_tensor(r),
+                                           c[:, None] * em.dipoles)
+    assert np.all(np.isnan(got[0])) and not np.any(np.isnan(got[1:]))
+    assert _relative(got[1:], want[1:]) < AGREE
+
+
+def test_decay_channels_are_split_as_per_time_emitted_power():
+    """decay_observables asks for the channel names with one emitter; the values are
+    still those of environment.emitted_power at each time (consistency, no source)."""
+    em, env = _fibre_chain()
+    H = coupling_matrix(em, env)
+    times, amps = evolve(H, single_emitter_state(em.n, 0), 4.0, 5)
+    obs = decay_observables(H, times, amps, channels=(em, env))
+    for k in range(len(times)):
+        for name, value in env.emitted_power(em, amps[k]).items():
+            assert obs[name][k] == pytest.approx(value, rel=1e-12, abs=1e-15)
+    total = sum(obs[name] for name in env.emitted_power(em, amps[0]))
+    np.testing.assert_allclose(total, obs["power"], rtol=1e-10)

@@ -89,12 +89,7 @@ def _phase_sum(positions: np.ndarray, weighted: np.ndarray, n_hat: np.ndarray) -
     few matrix products).  Other arrangements use the direct sum.
     """
     n = positions.shape[0]
-    grid = grid_indices(positions) if n >= 16 else None
-    if grid is not None:
-        kk, steps = grid
-        dims = kk.max(axis=0) + 1
-        if np.prod(dims) > 8 * n:  # beyond this the direct sum is cheaper
-            grid = None
+    grid = _separable_grid(positions)
     out = np.empty((n_hat.shape[0], 3), dtype=complex)
     if grid is None:
         pos = positions - positions.mean(axis=0)  # small phases
@@ -103,6 +98,8 @@ def _phase_sum(positions: np.ndarray, weighted: np.ndarray, n_hat: np.ndarray) -
             nb = n_hat[s:s + step]
             out[s:s + step] = np.exp(-1j * K0 * (nb @ pos.T)) @ weighted
         return out
+    kk, steps = grid
+    dims = kk.max(axis=0) + 1
     kx, ky, kz = dims
     coeff = np.zeros((kx, ky, kz, 3), dtype=complex)
     coeff[kk[:, 0], kk[:, 1], kk[:, 2]] = weighted
@@ -116,6 +113,15 @@ def _phase_sum(positions: np.ndarray, weighted: np.ndarray, n_hat: np.ndarray) -
         t = np.einsum("qb,qbr->qr", fy, t).reshape(-1, kz, 3)
         out[s:s + step] = np.einsum("qc,qcd->qd", fz, t)
     return out
+
+
+def _separable_grid(positions: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """Grid indices and steps when the per-axis separable sum pays off, else None."""
+    n = positions.shape[0]
+    grid = grid_indices(positions) if n >= 16 else None
+    if grid is not None and np.prod(grid[0].max(axis=0) + 1) > 8 * n:
+        return None  # beyond this the direct sum is cheaper
+    return grid
 
 
 @dataclass(frozen=True)
@@ -351,6 +357,61 @@ def _expanded_sum(pos: np.ndarray, weights: np.ndarray, u: np.ndarray, uz: np.nd
     return field
 
 
+def _cap_power(em: Emitters, c: np.ndarray, order: int, half_angle: float, axis: str) -> float:
+    """∫_cap dP/dΩ dΩ [Γ0] on the cap quadrature of :func:`cap_grid` (φ count made even).
+
+    The same Gauss–Legendre × uniform-φ rule, summed faster: with an even number
+    of azimuths, φ and φ + π flip the in-plane phase, so on each ring
+    F(φ) = Σ_j v_j (cos − i sin)(k0 ρ p_j(φ)) and F(φ + π) the same with + i sin,
+    where v_j = w_j e^{−ik0 μ z_j}, ρ = sin θ and p_j(φ) = x_j cos φ + y_j sin φ.
+    Half as many (real) phase evaluations as the direct sum, and real matrix
+    products.  Exact algebra; the quadrature is exact for the band limit as in
+    :func:`cap_grid` (more azimuths only add exactness).
+    """
+    if axis not in ("+z", "-z"):
+        raise ValueError(f"axis: {axis!r} is not allowed; allowed: +z, -z")
+    order = max(int(order), 4)
+    mu0 = float(np.cos(half_angle))
+    n_mu, n_phi = order // 2 + 2, order + 2
+    n_phi += n_phi % 2
+    half = n_phi // 2
+    x, w = np.polynomial.legendre.leggauss(n_mu)
+    mu = 0.5 * (1.0 - mu0) * x + 0.5 * (1.0 + mu0)
+    w_ring = 0.5 * (1.0 - mu0) * w * (2.0 * np.pi / n_phi)
+    if axis == "-z":
+        mu = -mu
+    rho = np.sqrt(np.clip(1.0 - mu * mu, 0.0, None))
+    phi = 2.0 * np.pi * np.arange(half) / n_phi
+    pos = em.positions - em.positions.mean(axis=0)
+    proj = np.outer(np.cos(phi), pos[:, 0]) + np.outer(np.sin(phi), pos[:, 1])  # (half, N)
+    scalar = bool(np.all(em.dipoles == em.dipoles[0]))
+    weights = c[:, None] if scalar else c[:, None] * em.dipoles  # (N, C)
+    n_comp = weights.shape[1]
+    total = 0.0
+    step = max(1, _CHUNK_ELEMENTS // max(half * em.n, 1))
+    for s in range(0, n_mu, step):
+        m_r, r_r = mu[s:s + step], rho[s:s + step]
+        v = np.exp(-1j * K0 * np.outer(m_r, pos[:, 2]))[:, :, None] * weights  # (R, N, C)
+        v_real = np.concatenate([v.real, v.imag], axis=2)  # (R, N, 2C)
+        arg = (K0 * r_r)[:, None, None] * proj  # (R, half, N)
+        cos_part = np.cos(arg) @ v_real  # (R, half, 2C)
+        sin_part = np.sin(arg) @ v_real
+        a = cos_part[..., :n_comp] + 1j * cos_part[..., n_comp:]
+        b = sin_part[..., :n_comp] + 1j * sin_part[..., n_comp:]
+        for sign, field in ((1.0, a - 1j * b), (-1.0, a + 1j * b)):
+            n_hat = np.stack(np.broadcast_arrays(
+                sign * r_r[:, None] * np.cos(phi), sign * r_r[:, None] * np.sin(phi),
+                m_r[:, None]), axis=-1)  # (R, half, 3)
+            if scalar:
+                d = em.dipoles[0]
+                power = np.abs(field[..., 0]) ** 2 * (np.vdot(d, d).real - np.abs(n_hat @ d) ** 2)
+            else:
+                nf = np.sum(n_hat * field, axis=-1)
+                power = np.sum(np.abs(field) ** 2, axis=-1) - np.abs(nf) ** 2
+            total += float(np.sum(w_ring[s:s + step, None] * power))
+    return _PREF * total
+
+
 def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
                        axis: str = "+z", *, total: float | None = None) -> float:
     """Fraction of the emitted power inside a lens of numerical aperture ``na``.
@@ -365,13 +426,35 @@ def collected_fraction(em: Emitters, amplitudes: np.ndarray, na: float,
     total : float, optional
         Total emitted power [Γ0] if already known (for a unit-norm eigenvector
         in free space, its decay rate); otherwise computed by quadrature.
+
+    Returns
+    -------
+    float
+        Collected share of the total, NaN when nothing is emitted.
+
+    Notes
+    -----
+    The cap integral uses the Gauss–Legendre × uniform-φ rule of
+    :func:`cap_grid` at :func:`angular_order`; on a grid the separable sum of
+    :func:`far_field_power` evaluates it, otherwise half-turn pairs of azimuths
+    share their phases (:func:`_cap_power`).
+
+    References
+    ----------
+    Jackson, *Classical Electrodynamics* (1999), Eq. (9.22) (the integrand).
     """
     na = float(na)
     if not 0.0 < na <= 1.0:
         raise ValueError(f"na: {na} is out of range; allowed 0 < NA ≤ 1 (lens in vacuum)")
-    order = angular_order(em)
-    cap = cap_grid(order, np.arcsin(na), axis)
-    inside = float(np.sum(cap.weights * far_field_power(em, amplitudes, cap.directions)))
+    c = np.asarray(amplitudes, dtype=complex)
+    if c.shape != (em.n,):
+        raise ValueError(f"amplitudes: expected shape ({em.n},), got {c.shape}")
+    order, half_angle = angular_order(em), float(np.arcsin(na))
+    if _separable_grid(em.positions) is not None:  # the grid sum is faster there
+        cap = cap_grid(order, half_angle, axis)
+        inside = float(np.sum(cap.weights * far_field_power(em, c, cap.directions)))
+    else:
+        inside = _cap_power(em, c, order, half_angle, axis)
     if total is None:
         total = total_power(em, amplitudes)
     if total <= 0.0:

@@ -367,3 +367,33 @@ def test_taylor_term_count_meets_its_remainder_bound(x_max):
     series = sum((1j * x) ** m / math.factorial(m) for m in range(k))
     # series round-off ~1e-16 · e^{|x|}: 4 ulp of margin
     assert np.max(np.abs(series - np.exp(1j * x))) <= _EXPANSION_TOL + 4e-16 * np.exp(x_max)
+
+
+# The cap sum of collected_fraction for arrangements off a grid is the same
+# quadrature summed by half-turn pairs (far_field.py, _cap_power): round-off only.
+CAP_TOL = 1e-13
+
+
+@pytest.mark.parametrize("make", NON_LAYERED)
+@pytest.mark.parametrize("na", [pytest.param(na, id=f"NA{na:g}") for na in (0.3, 0.9, 1.0)])
+def test_collected_fraction_off_grid_equals_the_direct_cap_quadrature(make, na):
+    # Reference: the cap quadrature (cap_grid) of the direct sum far_field_power
+    # (Jackson, Classical Electrodynamics, 3rd ed., Eq. 9.22), over the total power
+    # by the sphere quadrature (exact identity, tests above)
+    em = make()
+    rng = np.random.default_rng(13)
+    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    total = total_power(em, c)
+    for axis in ("+z", "-z"):
+        cap = cap_grid(angular_order(em), np.arcsin(na), axis)
+        ref = np.sum(cap.weights * far_field_power(em, c, cap.directions)) / total
+        assert collected_fraction(em, c, na, axis, total=total) == pytest.approx(ref, abs=CAP_TOL)
+
+
+def test_collected_fractions_of_both_hemispheres_add_to_one_off_grid():
+    # NA = 1 up and down cover the sphere: the two fractions sum to 1 (exact identity,
+    # with the sphere quadrature as the total; common practice, no source)
+    em = _jittered(lattices.square(10, 10, 0.3, "x"), 0.02, 4)
+    c = np.random.default_rng(14).normal(size=em.n) + 0j
+    up, down = (collected_fraction(em, c, 1.0, axis) for axis in ("+z", "-z"))
+    assert up + down == pytest.approx(1.0, abs=CAP_TOL)

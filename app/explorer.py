@@ -339,7 +339,11 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
                 state.session_key = Autosave.new_key()
             state.solve()  # on the pool
         # the rest of the page a moment later: a quick first spectrum goes out before it
-        doc.add_timeout_callback(lambda: _fill(state, views, slots), FILL_DELAY_MS)
+        doc.add_timeout_callback(fill, FILL_DELAY_MS)
+
+    def fill():
+        if not state.runner.gone():  # the page may have been closed meanwhile
+            _fill(state, views, slots)
 
     if autosave is not None:
         def keep(*_):
@@ -355,6 +359,8 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.state.location.sync(state, keys, on_error=_url_refused(state))
     pn.state.onload(start)
     pn.state.on_session_destroyed(lambda ctx: state.close())
+    if isinstance(state.runner, ServerRunner):
+        state.runner.on_gone = state.close
     return page
 
 

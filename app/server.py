@@ -43,13 +43,37 @@ class ServerRunner:
     def __init__(self, doc) -> None:
         self.doc = doc
         self.closed = False
+        self.on_gone: Callable[[], None] | None = None  # told once when the page is gone
+        self._connected = False
 
     def close(self) -> None:
         """The session is gone: queued jobs return at once, nothing comes back."""
         self.closed = True
 
-    def _work(self, job: Callable[[], Any]) -> Any:
+    def gone(self) -> bool:
+        """Whether the page has been closed (its websocket connected once and is now gone).
+
+        The server destroys an abandoned session only some seconds later; until
+        then nothing more is computed or sent for it.
+        """
         if self.closed:
+            return True
+        context = getattr(self.doc, "session_context", None)
+        session = getattr(context, "session", None) if context is not None else None
+        count = getattr(session, "connection_count", None)
+        if count is None:
+            return False
+        if count > 0:
+            self._connected = True
+            return False
+        if self._connected:
+            self.closed = True
+            if self.on_gone is not None:
+                self.on_gone()
+        return self.closed
+
+    def _work(self, job: Callable[[], Any]) -> Any:
+        if self.closed:  # read only here: the loop decides when a page is gone
             return None
         try:
             return job()
@@ -69,7 +93,7 @@ class ServerRunner:
         from panel.io import hold
 
         def run():
-            if not self.closed:
+            if not self.gone():
                 with hold(self.doc):
                     fn()
 

@@ -103,6 +103,11 @@ class Page:
         self.page.on("pageerror", lambda e: self.errors.append(str(e)))
         self.page.goto(url, wait_until="domcontentloaded")
         self.wait_for_points(lambda n: n > 0)
+        self.wait_for_complete()
+
+    def wait_for_complete(self) -> None:
+        """Wait until the controls and the far field have joined the first, light page."""
+        self.wait_for("return doc.get_model_by_name('choir-farfield') !== null")
 
     def _console(self, msg) -> None:
         if msg.type == "error":

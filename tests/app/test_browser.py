@@ -23,7 +23,7 @@ pytestmark = pytest.mark.browser
 
 def test_page_opens_on_the_demo_scenario_and_shows_the_caution(tab):
     assert tab.wait_for_points(lambda n: n == 9) == 9
-    text = tab.text()
+    text = tab.wait_for_text(["Nine-atom ring", "Model.", "two-level"])
     assert "Nine-atom ring" in text and "Model." in text and "two-level" in text
     ARTIFACTS.mkdir(exist_ok=True)
     time.sleep(1.0)  # let the far field paint
@@ -188,7 +188,7 @@ def test_bands_open_on_demand_and_a_finite_mode_is_clickable(tab):
     path = ROOT / "scenarios" / "mirror_square_16x16.json"
     tab.page.locator("input[type=file]").set_input_files(str(path))
     tab.wait_for_points(lambda k: k == 256)
-    assert tab.data("choir-bands-points", "s") == []  # nothing computed while closed
+    assert tab.js("return doc.get_model_by_name('choir-bands-points') === null")  # not built
     tab.page.get_by_text("Bands of the infinite lattice (open to compute)").click()
     n = tab.wait_for("const s = doc.get_model_by_name('choir-bands-points');"
                      "return s && s.data.s.length")
@@ -301,7 +301,9 @@ def test_a_drawn_array_survives_a_reload(tab):
     time.sleep(1.0)  # the autosave follows the solve
     tab.page.goto(url, wait_until="domcontentloaded")
     assert tab.wait_for_points(lambda n: n == 10) == 10
-    assert "(modified)" in tab.text() or "N = 10" in tab.text()
+    tab.wait_for_complete()
+    text = tab.wait_for_text("N = 10")
+    assert "(modified)" in text or "N = 10" in text
 
 
 def test_a_drawn_array_survives_a_server_restart(browser, tmp_path):

@@ -68,8 +68,32 @@ def greens_tensor(r_vec: np.ndarray) -> np.ndarray:
 
 
 #: Field points per block of :func:`greens_sum`: bounds its temporaries to a few
-#: arrays of _SUM_BLOCK·N complex numbers.
+#: arrays of _SUM_BLOCK·N numbers.
 _SUM_BLOCK = 128
+
+#: e^{2πi k/M} for the table-driven phase factor of :func:`_phase` (M a power of two).
+_PHASE_STEPS = 4096
+_PHASE_TABLE = np.exp(2j * np.pi * np.arange(_PHASE_STEPS) / _PHASE_STEPS)
+
+
+def _phase(r: np.ndarray) -> np.ndarray:
+    """e^{ik0 r} = e^{2πi r} for r in λ0, table-driven: 3-4 times faster than cos + sin.
+
+    r = k/M + δ with |δ| ≤ 1/2M (exact in floating point, M a power of two); the
+    table holds e^{2πik/M} and e^{2πiδ} is a Taylor polynomial, |2πδ| ≤ 7.7e-4,
+    truncated after θ⁴ (remainder below 3e-18).  Agrees with numpy's exp to
+    rounding (a few 1e-16 relative to 1 plus the rounding of k0 r itself).
+
+    References
+    ----------
+    P. T. P. Tang, ACM Trans. Math. Softw. 15, 144 (1989) (table-driven
+    elementary functions).
+    """
+    k = np.rint(r * _PHASE_STEPS)
+    theta = (r - k / _PHASE_STEPS) * (2.0 * np.pi)
+    t2 = theta * theta
+    small = (1.0 - t2 * (0.5 - t2 / 24.0)) + 1j * (theta * (1.0 - t2 / 6.0))
+    return _PHASE_TABLE[k.astype(np.int64) & (_PHASE_STEPS - 1)] * small
 
 
 def greens_sum(points: np.ndarray, positions: np.ndarray, vectors: np.ndarray, *,
@@ -78,7 +102,8 @@ def greens_sum(points: np.ndarray, positions: np.ndarray, vectors: np.ndarray, *
 
     With the factors of :func:`greens_tensor`, G(r)·p = (k0 e^{ik0r}/4πk0r)
     [a p + b r̂ (r̂·p)]: two scalar functions of r per pair, so the cost is a
-    few complex operations per (point, source) pair instead of a 3×3 tensor.
+    few operations per (point, source) pair instead of a 3×3 tensor.  The sum
+    over sources of the r̂(r̂·p) part is taken per axis with r = r_m − r_j.
 
     Parameters
     ----------
@@ -109,23 +134,21 @@ def greens_sum(points: np.ndarray, positions: np.ndarray, vectors: np.ndarray, *
     vec = np.asarray(vectors, dtype=complex)
     out = np.empty((pts.shape[0], 3), dtype=complex)
     near = np.zeros(pts.shape[0], dtype=bool)
-    pref = K0 / (4.0 * np.pi)
     limit = max(float(min_distance), 0.0) ** 2
     for start in range(0, pts.shape[0], _SUM_BLOCK):
         p = pts[start:start + _SUM_BLOCK]
-        d = [p[:, k, None] - pos[None, :, k] for k in range(3)]  # 3 × (m, N)
+        d = [p[:, k, None] - pos[None, :, k] for k in range(3)]  # 3 × (m, N), r_m − r_j
         r2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2]
         bad = (r2 <= limit) | (r2 == 0.0)
-        any_bad = bad.any()
+        any_bad = bool(bad.any())
         if any_bad:
             r2[bad] = 1.0  # placeholder; these pairs get zero weight below
         r = np.sqrt(r2)
-        x = K0 * r
-        inv = 1.0 / x
-        e = (np.cos(x) + 1j * np.sin(x)) * (pref * inv)  # k0 e^{ik0r}/(4π k0 r)
+        inv = 1.0 / (K0 * r)  # 1/(k0 r)
         inv2 = inv * inv
-        ea = e * ((1.0 - inv2) + 1j * inv)  # e·a
-        eb = e * ((3.0 * inv2 - 1.0) - 3j * inv) / r2  # e·b/r², so r̂r̂ → r r
+        e = _phase(r) * ((K0 / (4.0 * np.pi)) * inv)  # k0 e^{ik0r}/(4π k0 r)
+        ea = e * ((1.0 - inv2) + 1j * inv)  # times a
+        eb = e * (((3.0 * inv2 - 1.0) - 3j * inv) / r2)  # times b/r²: r̂r̂ → r r
         rp = d[0] * vec[None, :, 0] + d[1] * vec[None, :, 1] + d[2] * vec[None, :, 2]
         w = eb * rp
         if any_bad:

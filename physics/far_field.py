@@ -347,13 +347,22 @@ def _expanded_sum(pos: np.ndarray, weights: np.ndarray, u: np.ndarray, uz: np.nd
         b = -1j * K0 * delta  # (n_g,)
         w = weights[idx] * np.exp(-1j * K0 * centre * delta)[:, None]  # (n_g, C)
         y_g, x_t = yf[:, idx], xf[:, idx].T
+        powers = np.array([b ** k / math.factorial(k) for k in range(terms)])  # (K, n_g)
+        wk = powers[:, None, :] * w.T[None, :, :]  # (K, C, n_g)
         acc = None
-        for k in range(terms - 1, -1, -1):  # Horner: S = M_k + a S
-            wk = w * (b ** k / math.factorial(k))[:, None]
-            stacked = (y_g[None, :, :] * wk.T[:, None, :]).reshape(n_comp * p, idx.size)
-            m_k = (stacked @ x_t).reshape(n_comp, p, p)
-            acc = m_k if acc is None else m_k + a * acc
-        field += (np.exp(-1j * K0 * uz * z_bar) * acc).transpose(1, 2, 0)
+        chunk = max(1, _CHUNK_ELEMENTS // (n_comp * p * idx.size))
+        for top in range(terms, 0, -chunk):  # terms top−1 … bottom, in one product
+            bottom = max(0, top - chunk)
+            stacked = (wk[bottom:top, :, None, :] * y_g).reshape(-1, idx.size)
+            m = (stacked @ x_t).reshape(top - bottom, n_comp, p, p)
+            for k in range(top - bottom - 1, -1, -1):  # Horner: S = M_k + a S
+                if acc is None:
+                    acc = m[k].copy()
+                else:
+                    acc *= a
+                    acc += m[k]
+        acc *= np.exp(-1j * K0 * uz * z_bar)
+        field += acc.transpose(1, 2, 0)
     return field
 
 

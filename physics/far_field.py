@@ -266,7 +266,8 @@ def far_field_image(em: Emitters, amplitudes: np.ndarray, u: np.ndarray,
         out[inside] = far_field_power(em, c, n_hat[inside])
         return out
     weights = c[:, None] if scalar else c[:, None] * em.dipoles  # (N, C)
-    field = _expanded_sum(pos, weights, u, n_hat[..., 2], plan)  # (P, P, C)
+    centre = 0.5 if side == "+z" else -0.5  # middle of u_z on this hemisphere
+    field = _expanded_sum(pos, weights, u, n_hat[..., 2], centre, plan)  # (P, P, C)
     if scalar:
         d = em.dipoles[0]
         nd = n_hat @ d  # (P, P) complex
@@ -334,12 +335,16 @@ def _cluster_plan(z: np.ndarray, p: int, n_inside: int, n_comp: int):
 
 
 def _expanded_sum(pos: np.ndarray, weights: np.ndarray, u: np.ndarray, uz: np.ndarray,
-                  groups) -> np.ndarray:
-    """F(q, p) = Σ_j w_j e^{−ik0 n̂·r_j} on the pixel grid by the z expansion, (P, P, C)."""
+                  centre: float, groups) -> np.ndarray:
+    """F(q, p) = Σ_j w_j e^{−ik0 n̂·r_j} on the pixel grid by the z expansion, (P, P, C).
+
+    ``pos`` (N, 3) [λ0], ``weights`` (N, C), ``u`` (P,), ``uz`` (P, P) the z
+    direction cosine of each pixel, ``centre`` the expansion point in u_z
+    (|u_z − centre| ≤ ½), ``groups`` from :func:`_clusters`.
+    """
     p, n_comp = u.size, weights.shape[1]
     xf = np.exp(-1j * K0 * np.outer(u, pos[:, 0]))  # (P, N) along u_x
     yf = np.exp(-1j * K0 * np.outer(u, pos[:, 1]))  # (P, N) along u_y
-    centre = 0.5 if np.all(uz >= 0.0) else -0.5
     a = uz - centre  # |a| ≤ ½ on the hemisphere
     field = np.zeros((p, p, n_comp), dtype=complex)
     for idx, z_bar, terms in groups:

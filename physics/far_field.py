@@ -235,7 +235,7 @@ def far_field_image(em: Emitters, amplitudes: np.ndarray, u: np.ndarray,
     clusters of nearby z (z_j = z̄_g + δ_j) and, with u_z = u_c + a
     (u_c = ±½ the middle of the hemisphere, |a| ≤ ½),
 
-        e^{−ik0 u_z z_j} = e^{−ik0 u_z z̄_g} e^{−ik0 u_c δ_j} Σ_{k<K} (−ik0 δ_j a)^k / k!,
+        e^{−ik0 u_z z_j} = e^{−ik0 u_z z̄_g} e^{−ik0 u_c δ_j} Σ_{k<K} (−ik0 δ_j a)^k/k!,
 
     one more matrix product per term.  For real x the Taylor remainder of
     e^{ix} after K terms is at most |x|^K / K!, so the error of each pixel's
@@ -328,7 +328,7 @@ def _cluster_plan(z: np.ndarray, p: int, n_inside: int, n_comp: int):
         cost = 2 * p * n * _COST_EXP
         for idx, _, terms in groups:
             cost += p * p * (_COST_EXP + 2 * n_comp * _COST_ELEMENT * terms)
-            cost += terms * n_comp * (idx.size * p * p * _COST_MATMUL + idx.size * p * _COST_ELEMENT)
+            cost += terms * n_comp * idx.size * p * (p * _COST_MATMUL + _COST_ELEMENT)
         if cost < best_cost:
             best, best_cost = groups, cost
     return best

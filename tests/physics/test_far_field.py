@@ -309,7 +309,8 @@ def _complex_jittered() -> Emitters:
 
 
 NON_LAYERED = [
-    pytest.param(lambda: _jittered(lattices.square(20, 20, 0.3, "x"), 0.01, 1), id="jittered-square"),
+    pytest.param(lambda: _jittered(lattices.square(20, 20, 0.3, "x"), 0.01, 1),
+                 id="jittered-square"),
     pytest.param(lambda: _jittered(lattices.square(12, 12, 0.4, "sigma+"), 0.05, 2),
                  id="jittered-square-sigma+"),
     pytest.param(lambda: Emitters(np.random.default_rng(3).uniform(-1.5, 1.5, (120, 3)), "z"),

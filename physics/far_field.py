@@ -15,7 +15,6 @@ J. D. Jackson, *Classical Electrodynamics*, 3rd ed. (Wiley, 1999), Sec. 9.2
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -288,8 +287,16 @@ _EXPANSION_TOL = 1e-16
 _COST_MATMUL, _COST_ELEMENT, _COST_EXP = 0.3, 3.0, 25.0
 
 
+_MAX_TERMS = 200  # beyond this the expansion is never the cheaper sum
+
+
 def _terms_needed(x_max: float) -> int:
-    """Smallest K ≥ 1 with x_max^K / K! ≤ _EXPANSION_TOL (Taylor remainder bound)."""
+    """Smallest K ≥ 1 with x_max^K / K! ≤ _EXPANSION_TOL (Taylor remainder bound).
+
+    Arguments needing more than ``_MAX_TERMS`` terms return ``_MAX_TERMS + 1``.
+    """
+    if x_max > 0.25 * _MAX_TERMS:  # up to 50, 50^200/200! ≈ 1e-35: the loop ends by K = 200
+        return _MAX_TERMS + 1
     k, bound = 0, 1.0
     while bound > _EXPANSION_TOL:
         k += 1
@@ -352,7 +359,9 @@ def _expanded_sum(pos: np.ndarray, weights: np.ndarray, u: np.ndarray, uz: np.nd
         b = -1j * K0 * delta  # (n_g,)
         w = weights[idx] * np.exp(-1j * K0 * centre * delta)[:, None]  # (n_g, C)
         y_g, x_t = yf[:, idx], xf[:, idx].T
-        powers = np.array([b ** k / math.factorial(k) for k in range(terms)])  # (K, n_g)
+        powers = np.ones((terms, idx.size), dtype=complex)  # b^k / k!, (K, n_g)
+        for k in range(1, terms):
+            powers[k] = powers[k - 1] * (b / k)
         wk = powers[:, None, :] * w.T[None, :, :]  # (K, C, n_g)
         acc = None
         chunk = max(1, _CHUNK_ELEMENTS // (n_comp * p * idx.size))

@@ -354,7 +354,8 @@ def test_far_field_image_uses_the_expansion_for_jittered_arrays(make, monkeypatc
     assert np.isfinite(np.nanmax(img))
 
 
-@pytest.mark.parametrize("x_max", [pytest.param(x, id=f"x{x:g}") for x in (0.0, 0.05, 0.5, 3.0)])
+@pytest.mark.parametrize("x_max", [pytest.param(x, id=f"x{x:g}")
+                                   for x in (0.0, 0.05, 0.5, 3.0, 30.0)])
 def test_taylor_term_count_meets_its_remainder_bound(x_max):
     # |e^{ix} − Σ_{k<K} (ix)^k/k!| ≤ |x|^K/K! for real x (Taylor remainder, common
     # practice, no source): check the bound and the truncated series on a grid of x
@@ -398,3 +399,19 @@ def test_collected_fractions_of_both_hemispheres_add_to_one_off_grid():
     c = np.random.default_rng(14).normal(size=em.n) + 0j
     up, down = (collected_fraction(em, c, 1.0, axis) for axis in ("+z", "-z"))
     assert up + down == pytest.approx(1.0, abs=CAP_TOL)
+
+
+def test_far_field_image_of_a_tall_arrangement_falls_back_to_the_direct_sum():
+    # z spread of 600 λ0: the expansion would need hundreds of terms, so the direct
+    # sum is used; reference as above (Jackson, Classical Electrodynamics, Eq. 9.22)
+    rng = np.random.default_rng(15)
+    pos = np.column_stack([rng.normal(0, 0.1, 40), rng.normal(0, 0.1, 40),
+                           np.linspace(0.0, 600.0, 40)])
+    em = Emitters(pos, "x")
+    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    u = np.linspace(-1.0, 1.0, 21)
+    img = far_field_image(em, c, u, "+z")
+    ux, uy = np.meshgrid(u, u, indexing="xy")
+    inside = ux ** 2 + uy ** 2 <= 1.0
+    ref = far_field_power(em, c, hemisphere_directions(ux[inside], uy[inside], "+z"))
+    np.testing.assert_allclose(img[inside], ref, rtol=0, atol=IMAGE_TOL * ref.max())

@@ -52,6 +52,8 @@ _SUMMARY = {"font-size": "12px", "color": "#333"}
 #: A served page adds its controls, far field and sections this long after loading, so
 #: that a quick first solve reaches the browser first [ms].
 FILL_DELAY_MS = 120
+#: A served page says "computing…" once a job has run this long [ms].
+BUSY_AFTER_MS = 250
 
 
 def _url_refused(state: ExplorerState):
@@ -204,12 +206,23 @@ def _sweep_section(state: ExplorerState, views: dict) -> Section:
 def _header(state: ExplorerState, views: dict) -> pn.Row:
     spinner = views["spinner"] = pn.indicators.LoadingSpinner(value=state.busy, size=22)
     busy_text = pn.pane.HTML("", styles={"font-size": "13px", "color": "#555"})
+    doc = pn.state.curdoc
+    served = doc is not None and getattr(doc, "session_context", None) is not None
 
     def show_busy(*_):
         spinner.value = state.busy
         busy_text.object = "computing…" if state.busy else ""
 
-    state.param.watch(show_busy, "busy")
+    def busy_changed(*_):
+        # served: say "computing…" only for work that takes a noticeable time, so quick
+        # slider steps do not make the header blink (and send two more messages each)
+        if served and state.busy:
+            doc.add_timeout_callback(lambda: state.busy and not spinner.value and show_busy(),
+                                     BUSY_AFTER_MS)
+        elif spinner.value or state.busy:
+            show_busy()
+
+    state.param.watch(busy_changed, "busy")
     heading = pn.pane.HTML(
         "<div style='display:flex;align-items:baseline;gap:14px'>"
         "<span style='font-size:22px;font-weight:700;color:#4a148c'>Choir</span>"

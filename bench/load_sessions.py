@@ -26,7 +26,8 @@ both into wall-clock times.  So the report separates, per session,
 and the server-side figure for all sessions at once: from the first
 navigation start until the last session's first spectrum data arrived.
 While the pages work, a plain GET /liveness every 0.5 s times the server's
-event loop.  Nothing is asserted except that every session ended in its own
+event loop, and the server process's CPU time (Linux /proc) until every page
+had its first spectrum shows whether it was busy or waiting for a core.  Nothing is asserted except that every session ended in its own
 state (printed).  On 2 cores the 20 browser pages compete with the server for
 the same cores: say so when quoting the figures.
 """
@@ -85,6 +86,15 @@ def poll(fn, timeout=180.0, what="condition"):
     raise RuntimeError(f"timed out: {what}")
 
 
+def cpu_seconds(pid: int) -> float | None:
+    """User + system CPU time a process has used so far (Linux /proc), or None."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
+
+
 def _marker_moved(page, t_mark: float, before: float) -> dict | None:
     """The marker's latest update after ``t_mark`` once it has been drawn (None before)."""
     r = page.evaluate(MARKER_JS, t_mark)
@@ -138,12 +148,14 @@ def main() -> None:
                         ctx.add_init_script(RECORDER_JS)
                         pages.append(ctx.new_page())
                     t_start = time.time()
+                    cpu0 = cpu_seconds(server.pid)
                     for page, (nx, a, _) in zip(pages, plan):  # all navigations under way at once
                         page.goto(f"{url}?lattice=square&nx={nx}&ny={nx}&a={a}",
                                   wait_until="commit")
                     first = [poll(lambda page=page, n=nx * nx: page.evaluate(FIRST_SPECTRUM_JS, n),
                                   what="first spectrum") for page, (nx, _, _) in zip(pages, plan)]
                     t_settled = time.time()
+                    cpu1 = cpu_seconds(server.pid)
                     steps, steps_frame = [], []
                     for page, (_, _, k) in zip(pages, plan):
                         for _ in range(k):
@@ -196,6 +208,11 @@ def main() -> None:
           f"{'HOLDS' if max(arrived) <= TARGET_ALL_S else 'MISSED'}")
     print(f"    per session, document ready → first spectrum data (session start, solve, send): "
           f"{_stats(serve)}")
+    if cpu0 is not None and cpu1 is not None:
+        wall = t_settled - t_start
+        print(f"    server process CPU meanwhile: {cpu1 - cpu0:.1f} s in {wall:.1f} s of wall time "
+              f"({100 * (cpu1 - cpu0) / wall:.0f} % of one core; the rest of the time it waited "
+              f"for a core or for the pages)")
     print(f"  browser side — navigation → document ready: {_stats(load)}; data arrived → "
           f"spectrum drawn (next frame): {_stats(draw)}")
     print(f"    every page had drawn its spectrum {max(painted):.1f} s after the first navigation "

@@ -148,7 +148,10 @@ RECORDER_JS = r"""
         const fresh = m.id !== u.old[n] || (S.lastData[n] ?? -1) >= u.since;
         if (!fresh) { ok = false; break; }
       }
-      if (ok) { u.t = performance.now(); requestAnimationFrame(() => { u.frame = performance.now(); }); }
+      if (ok) {
+        u.t = performance.now();
+        requestAnimationFrame(() => { u.frame = performance.now(); });
+      }
     }
   };
   S.checkUntil = checkUntil;
@@ -165,7 +168,8 @@ RECORDER_JS = r"""
         if (S.known.has(r.id)) continue;
         S.known.add(r.id);
         if (typeof r.get_length === "function" && String(r.name ?? "").startsWith("choir-")
-            && length(r) > 0) found.push(r);
+            && length(r) > 0)
+          found.push(r);
       }
     }
     return found;
@@ -179,10 +183,12 @@ RECORDER_JS = r"""
         record({t: performance.now(), frame: null, id: r.id, name: r.name, attr: "data",
                 len: length(r)});
     }
-    const data = ev.attr === "data" || ev.kind === "ColumnsStreamed" || ev.kind === "ColumnsPatched";
+    const data = ev.attr === "data" || ev.kind === "ColumnsStreamed"
+                 || ev.kind === "ColumnsPatched";
     if (counted(ev)) {
-      record({t: performance.now(), frame: null, id: m ? m.id : null, name: m ? (m.name ?? null) : null,
-              attr: data ? "data" : ev.attr, len: (m && data) ? length(m) : null});
+      record({t: performance.now(), frame: null, id: m ? m.id : null,
+              name: m ? (m.name ?? null) : null, attr: data ? "data" : ev.attr,
+              len: (m && data) ? length(m) : null});
     }
     if (Object.keys(S.until).length) checkUntil();
   };
@@ -197,7 +203,8 @@ RECORDER_JS = r"""
     S.attached = performance.now();
     S.known = new Set([...doc.all_models].map((m) => m.id));
     for (const m of doc.all_models) {  // data that came with the document itself
-      if (typeof m.get_length === "function" && String(m.name ?? "").startsWith("choir-") && length(m) > 0)
+      if (typeof m.get_length === "function" && String(m.name ?? "").startsWith("choir-")
+          && length(m) > 0)
         record({t: S.attached, frame: null, id: m.id, name: m.name, attr: "data", len: length(m)});
     }
   }, 2);
@@ -215,11 +222,13 @@ _HELPERS = r"""
   const textOf = (m) => {
     if (m == null) return "";
     if (typeof m.text === "string") return plain(m.text);
-    if (Array.isArray(m.children)) return m.children.map((c) => textOf(Array.isArray(c) ? c[0] : c)).join(" ");
+    if (Array.isArray(m.children))
+      return m.children.map((c) => textOf(Array.isArray(c) ? c[0] : c)).join(" ");
     return "";
   };
   const probeCards = () => doc ? [...doc.all_models].filter((m) => /Card/.test(String(m.type))
-      && Array.isArray(m.children) && textOf(m.children[0]).replace(/\s+/g, " ").trim().startsWith(arg.card)) : [];
+      && Array.isArray(m.children)
+      && textOf(m.children[0]).replace(/\s+/g, " ").trim().startsWith(arg.card)) : [];
   const length = (m) => { try { return m.get_length() ?? 0; } catch (e) { return 0; } };
 """
 
@@ -228,7 +237,8 @@ STATUS_JS = "(arg) => {" + _HELPERS + r"""
   const view = S.events.filter((e) => e.t >= arg.t0);
   const missing = [];
   for (const [name, min] of arg.reqs)
-    if (!view.some((e) => e.name === name && e.attr === "data" && (e.len ?? 0) >= min)) missing.push(name);
+    if (!view.some((e) => e.name === name && e.attr === "data" && (e.len ?? 0) >= min))
+      missing.push(name);
   let until = null;
   if (arg.key) {
     const u = S.until[arg.key];
@@ -250,7 +260,8 @@ SUMMARY_JS = "(arg) => {" + _HELPERS + r"""
   for (const m of doc.all_models) {  // layouts holding the probe plots but not the spectrum
     if (!Array.isArray(m.children) && !Array.isArray(m.objects)) continue;
     const refs = m.references();
-    if (plots.some((p) => refs.has(p)) && !(main && refs.has(main))) for (const r of refs) ids.add(r.id);
+    if (plots.some((p) => refs.has(p)) && !(main && refs.has(main)))
+      for (const r of refs) ids.add(r.id);
   }
   const u = arg.key ? S.until[arg.key] : null;
   return {events: S.events.filter((e) => e.t >= arg.t0).map((e) => ({t: e.t, frame: e.frame,
@@ -714,20 +725,26 @@ class Run:
         self.notes["open"] += f"; document ready {_med_max(ready)} ms"
         return tab
 
+    def slider(self, tab: Tab, focus: bool) -> dict:
+        s = tab.js(SLIDER_JS, {"title": SLIDER_TITLE, "focus": focus, "card": PROBE_CARD})
+        if s is None:
+            raise RuntimeError(f"no slider titled {SLIDER_TITLE!r} on the page")
+        return s
+
     def slider_step(self, tab: Tab, row: str = "slider step") -> None:
-        before = tab.js(SLIDER_JS, {"title": SLIDER_TITLE, "focus": True, "card": PROBE_CARD})
+        before = self.slider(tab, focus=True)
         reqs = _step_reqs(tab, self.n)
         k0, t_mark = len(tab.inputs()), tab.now()
         tab.page.keyboard.press("ArrowRight")
         t_in = _input_time(tab, k0, "keydown")
         ok = tab.settle(t_mark, reqs, self.args.quiet, self.args.timeout)
-        after = tab.js(SLIDER_JS, {"title": SLIDER_TITLE, "focus": False, "card": PROBE_CARD})
+        after = self.slider(tab, focus=False)
         if abs(after["value"] - before["value"] - before["step"]) > 1e-9:
             self.notes[row] = f"slider moved {after['value'] - before['value']:+.4g}, not one step"
         self.add(row, figures(tab.summary(t_mark), t_in, "first", ok, self.n))
 
     def drag(self, tab: Tab) -> None:
-        s = tab.js(SLIDER_JS, {"title": SLIDER_TITLE, "focus": True, "card": PROBE_CARD})
+        s = self.slider(tab, focus=True)
         reqs = _step_reqs(tab, self.n)
         px = s["width"] * s["step"] / (s["end"] - s["start"])  # pixels per slider step
         k0, t_mark = len(tab.inputs()), tab.now()
@@ -741,7 +758,7 @@ class Run:
         mouse.up()
         t_in = _input_time(tab, k0, "pointerup", last=True)
         ok = tab.settle(t_mark, reqs, self.args.quiet, self.args.timeout)
-        after = tab.js(SLIDER_JS, {"title": SLIDER_TITLE, "focus": False, "card": PROBE_CARD})
+        after = self.slider(tab, focus=False)
         summ = tab.summary(t_mark)
         updates = sum(1 for e in summ["events"]
                       if e["attr"] == "data" and e["name"] == "choir-spectrum-points")

@@ -27,9 +27,10 @@ and the server-side figure for all sessions at once: from the first
 navigation start until the last session's first spectrum data arrived.
 While the pages work, a plain GET /liveness every 0.5 s times the server's
 event loop, and the server process's CPU time (Linux /proc) until every page
-had its first spectrum shows whether it was busy or waiting for a core.  Nothing is asserted except that every session ended in its own
-state (printed).  On 2 cores the 20 browser pages compete with the server for
-the same cores: say so when quoting the figures.
+had its first spectrum shows whether it was busy or waiting for a core.
+Nothing is asserted except that every session ended in its own state
+(printed).  On 2 cores the 20 browser pages compete with the server for the
+same cores: say so when quoting the figures.
 """
 from __future__ import annotations
 

@@ -1,9 +1,16 @@
 """Views of the explorer: one class per plot, each building its Bokeh figure once.
 
 Every view watches the session state and only assigns ``source.data`` (and a
-few axis labels) afterwards, so live dragging stays smooth.  No formula lives
-here: numbers come from :mod:`physics` through the state, and the state's
-unit helpers convert them for display.
+few axis labels and ranges) afterwards, so live dragging stays smooth.  No
+formula lives here: numbers come from :mod:`physics` through the state, and
+the state's unit helpers convert them for display.
+
+Every figure has explicit ranges: a ``Range1d`` that the view sets from its
+data, or — where x and y must share one scale (array, far field, maps) — a
+``DataRange1d`` with ``match_aspect`` that follows an invisible extent glyph
+which always holds two corner points.  BokehJS never has to guess a range
+from empty data (it logs a warning each time it tries), and a log axis never
+sees a value ≤ 0.  Legends sit below the plot frame, never on the data.
 """
 from __future__ import annotations
 
@@ -11,9 +18,9 @@ import colorsys
 import html
 
 import numpy as np
-from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, FixedTicker, HoverTool,
-                          Label, LinearColorMapper, PointDrawTool, Range1d, Span, TapTool,
-                          Whisker)
+from bokeh.models import (BoxAnnotation, ColorBar, ColumnDataSource, CustomJSHover, DataRange1d,
+                          FixedTicker, HoverTool, Label, Legend, LegendItem, LinearAxis,
+                          LinearColorMapper, PointDrawTool, Range1d, Span, TapTool, Whisker)
 from bokeh.palettes import Category10, Cividis256, Inferno256
 from bokeh.plotting import figure
 
@@ -27,7 +34,7 @@ from .state import DEFECTIVE_NOTE, ExplorerState
 __all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "BandsView", "SweepView",
            "mode_card_html",
            "PHASE_PALETTE",
-           "FIGURE_LABELS"]
+           "FIGURE_LABELS", "LOG_AXIS_DECADES", "area_unit"]
 
 #: Readable names of the mode figures used for colouring.
 FIGURE_LABELS = {
@@ -43,6 +50,15 @@ LOG_DECADES = 4.0
 
 #: Rates at or below this [Γ0] are round-off; the log axis shows them here.
 RATE_FLOOR = 1e-15
+
+#: Decades a log axis of a curve (decay) shows below the curves' largest value:
+#: enough for a long subradiant tail, few enough for readable ticks.
+LOG_AXIS_DECADES = 12.0
+
+#: Height [px] of the plotting area of the probe and decay plots (legends come below).
+PROBE_FRAME = 220
+
+_TAG_ROUND_OFF = f", rate at round-off (≤ {RATE_FLOOR:g} Γ0)"
 
 
 def _cyclic_palette(n: int = 256) -> list[str]:
@@ -64,6 +80,175 @@ def _fmt(value: float, unit: str) -> str:
     return f"{value:.4g} {unit}"
 
 
+def _fmt_near_zero(value: float, resolution: float, unit: str) -> str:
+    """Like ``_fmt``, but "0" for a value below ``resolution`` (round-off of a grid point)."""
+    return f"0 {unit}" if abs(value) < resolution else f"{value:+.4g} {unit}"
+
+
+def area_unit(state: ExplorerState) -> tuple[str, float]:
+    """The display unit of an area and how many of it make one λ0².
+
+    Internal units: λ0².  Lab units: µm², the factor being (λ0 in µm)² from
+    the state's own length conversion; for the explorer's λ0 of 100 nm to
+    100 µm one λ0² is 0.01 to 10⁴ µm², readable without powers of ten.
+    """
+    if state.units != "lab":
+        return "λ0²", 1.0
+    return "µm²", (float(state.to_length(1.0)) / 1000.0) ** 2
+
+
+# ---------------------------------------------------------------- ranges and sources
+
+def _finite(*arrays) -> np.ndarray:
+    vals = [np.asarray(a, float).ravel() for a in arrays if np.size(a)]
+    v = np.concatenate(vals) if vals else np.zeros(0)
+    return v[np.isfinite(v)]
+
+
+def _linear_span(*arrays, pad: float = 0.05, half: float = 1.0) -> tuple[float, float]:
+    """Finite values' [min, max] widened by ``pad`` of the span each side.
+
+    No values: (−half, half); all equal: that value ± ``half`` (in display units).
+    """
+    v = _finite(*arrays)
+    if v.size == 0:
+        return -half, half
+    lo, hi = float(v.min()), float(v.max())
+    if hi - lo <= 1e-12 * max(abs(lo), abs(hi), 1e-300):
+        return lo - half, hi + half
+    d = pad * (hi - lo)
+    return lo - d, hi + d
+
+
+def _log_span(*arrays, decades: float | None = LOG_AXIS_DECADES, at_least: float = 2.0,
+              pad: float = 0.06) -> tuple[float, float]:
+    """Positive finite values' [min, max] for a log axis, at most ``decades`` below the max.
+
+    Padded by ``pad`` of the span (in decades) each side and at least
+    ``at_least`` decades wide (one for a single value): below two decades
+    BokehJS ticks a log axis linearly (5, 10, 15), which leaves the lower
+    points of a spectrum or a decay without a label, but suits a parameter
+    sweep.  (0.1, 10) without positive data.
+    """
+    v = _finite(*arrays)
+    v = v[v > 0]
+    if v.size == 0:
+        return 0.1, 10.0
+    hi = float(np.log10(v.max()))
+    lo = float(np.log10(v.min()))
+    if decades is not None:
+        lo = max(lo, hi - decades)
+    at_least = max(at_least, 1.0 if hi == lo else 0.0)
+    if hi - lo < at_least:
+        mid = 0.5 * (hi + lo)
+        lo, hi = mid - at_least / 2, mid + at_least / 2
+    d = pad * (hi - lo)
+    return 10.0 ** (lo - d), 10.0 ** (hi + d)
+
+
+def _set_range(rng: Range1d, span: tuple[float, float]) -> None:
+    """Show ``span`` now and after the reset tool (only what changed is sent)."""
+    lo, hi = float(span[0]), float(span[1])
+    if (rng.start, rng.end, rng.reset_start, rng.reset_end) != (lo, hi, lo, hi):
+        rng.update(start=lo, end=hi, reset_start=lo, reset_end=hi)
+
+
+def _extent(p, x=(-1.0, 1.0), y=(-1.0, 1.0)) -> ColumnDataSource:
+    """Two invisible corner points that alone set a plot's ``DataRange1d`` x and y ranges.
+
+    With ``match_aspect`` BokehJS widens one range so a data unit has the same
+    length in x and y whatever the page width; the view moves the corners to
+    its data (``_set_extent``).  The glyph always holds two points, so the
+    ranges are never computed from nothing.
+    """
+    src = ColumnDataSource(dict(x=list(x), y=list(y)))
+    r = p.scatter("x", "y", source=src, size=0, alpha=0.0, visible=False)
+    p.x_range.renderers = [r]
+    p.y_range.renderers = [r]
+    return src
+
+
+def _set_extent(src: ColumnDataSource, x0: float, x1: float, y0: float, y1: float) -> None:
+    _assign(src, dict(x=[float(x0), float(x1)], y=[float(y0), float(y1)]))
+
+
+def _aspect_ranges() -> dict:
+    """x and y ranges for a plot whose two axes share one scale (see ``_extent``)."""
+    return dict(x_range=DataRange1d(range_padding=0.04), y_range=DataRange1d(range_padding=0.04),
+                match_aspect=True)
+
+
+def _same(a, b) -> bool:
+    """Are two column values equal (arrays, lists, nested lists)?  Unsure → False."""
+    if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
+        return len(a) == len(b) and all(_same(x, y) for x, y in zip(a, b))
+    if isinstance(a, np.ndarray) or isinstance(b, np.ndarray):
+        try:
+            a, b = np.asarray(a), np.asarray(b)
+            if a.shape != b.shape or a.dtype.kind != b.dtype.kind:
+                return False
+            return bool(np.array_equal(a, b, equal_nan=a.dtype.kind in "fc"))
+        except (TypeError, ValueError):
+            return False
+    try:
+        return bool(a == b)
+    except (TypeError, ValueError):
+        return False
+
+
+def _rows(data) -> int:
+    return len(next(iter(data.values()))) if data else 0
+
+
+def _assign(source: ColumnDataSource, data: dict) -> None:
+    """Give ``source`` this data, sending only what changed.
+
+    Same columns and rows: only the changed columns go to the browser (nothing
+    if none changed); otherwise the whole table.  Numeric columns should be
+    numpy arrays, which Bokeh sends as binary buffers.
+    """
+    old = source.data
+    if set(old) == set(data) and _rows(old) == _rows(data):
+        changed = {k: v for k, v in data.items() if not _same(old[k], v)}
+        if changed:
+            source.data.update(changed)
+    else:
+        source.data = data
+
+
+def _clear(source: ColumnDataSource) -> None:
+    _assign(source, {k: [] for k in source.data})
+
+
+def _positive_or_nan(values) -> np.ndarray:
+    """Values for a log axis: zero and negative (and non-finite) become NaN, a gap in a line."""
+    v = np.array(values, dtype=float)
+    v[~(v > 0)] = np.nan
+    return v
+
+
+def _legend(p, items: list, *, ncols: int = 1) -> Legend:
+    """A legend below the plot frame, never over the data."""
+    legend = Legend(items=items, orientation="vertical", ncols=ncols, location="top_left",
+                    label_text_font_size="10px", glyph_height=14, label_height=14, spacing=0,
+                    padding=4, margin=4, border_line_alpha=0.0, background_fill_alpha=0.0)
+    p.add_layout(legend, "below")
+    return legend
+
+
+def _show_items(legend: Legend, shown: dict) -> None:
+    """Show the legend entries of the curves drawn, hide the others (and an empty legend)."""
+    for item, on in shown.items():
+        if item.visible != bool(on):
+            item.visible = bool(on)
+    legend.visible = any(item.visible for item in legend.items)
+
+
+def _names_hover() -> CustomJSHover:
+    """A hover formatter that shows ``names[value]`` for an integer code column."""
+    return CustomJSHover(args=dict(names=[]), code="return names[value] ?? ''")
+
+
 def _select_tapped(state: ExplorerState, source: ColumnDataSource, indices) -> None:
     """A tapped point selects its mode (column "mode"); the Bokeh selection is cleared."""
     if not indices:
@@ -74,15 +259,21 @@ def _select_tapped(state: ExplorerState, source: ColumnDataSource, indices) -> N
 
 
 class SpectrumView:
-    """Every collective mode as a point: shift (x) against decay rate (y, log)."""
+    """Every collective mode as a point: shift (x) against decay rate (y, log).
+
+    The points' source holds numbers only (shift and rate in display units,
+    lifetime, figures, integer codes for the tag and the symmetry sector); the
+    hover tool formats them, and its text is rebuilt only when the units change.
+    """
 
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
-        self.source = ColumnDataSource(dict(x=[], y=[], c=[], mode=[], shift=[], rate=[],
-                                            life=[], pr=[], pk=[], tag=[], sym=[]),
+        self.source = ColumnDataSource(dict(x=[], y=[], c=[], mode=[], rate=[], life=[], pr=[],
+                                            pk=[], tag=[], sym=[]),
                                        name="choir-spectrum-points")
         self.marker = ColumnDataSource(dict(x=[], y=[]), name="choir-spectrum-marker")
         p = figure(height=360, name="choir-spectrum", sizing_mode="stretch_width", y_axis_type="log",
+                   x_range=Range1d(-1.0, 1.0), y_range=Range1d(0.1, 10.0),
                    tools="pan,wheel_zoom,box_zoom,reset,save", toolbar_location="above",
                    title="Collective spectrum — click a point to select its mode")
         self.mapper = LinearColorMapper(palette=Cividis256)
@@ -92,10 +283,12 @@ class SpectrumView:
                       selection_fill_alpha=1.0)
         p.scatter("x", "y", source=self.marker, size=20, marker="circle", fill_alpha=0.0,
                   line_color=_ACCENT, line_width=3)
-        p.add_tools(HoverTool(renderers=[r], tooltips=[
-            ("mode", "@mode (@tag)"), ("shift", "@shift"), ("decay rate", "@rate"),
-            ("lifetime", "@life"), ("participation ratio", "@pr{0.0}"),
-            ("Petermann factor", "@pk{0.000}"), ("symmetry", "@sym")]))
+        self.tag_names, self.sector_names = _names_hover(), _names_hover()
+        self.hover = HoverTool(renderers=[r], formatters={
+            "@x": "printf", "@rate": "printf", "@life": "printf", "@tag": self.tag_names,
+            "@sym": self.sector_names})
+        self._tooltip_units: tuple | None = None
+        p.add_tools(self.hover)
         p.add_tools(TapTool(renderers=[r]))
         self.single = Span(location=1.0, dimension="width", line_dash="dashed",
                            line_color="#666666", line_width=1)
@@ -113,30 +306,47 @@ class SpectrumView:
         state.param.watch(self.update_marker, ["selected_mode"])
         self.update()
 
+    def _tooltips(self) -> None:
+        """Hover text in the display units; rebuilt only when they change."""
+        fu, tu = self.state.frequency_label(), self.state.time_label()
+        if self._tooltip_units == (fu, tu):
+            return
+        self._tooltip_units = (fu, tu)
+        self.hover.tooltips = [
+            ("mode", "@mode (@tag{custom})"), ("shift", f"@x{{%+.4g}} {fu}"),
+            ("decay rate", f"@rate{{%.4g}} {fu}"), ("lifetime", f"@life{{%.4g}} {tu}"),
+            ("participation ratio", "@pr{0.0}"), ("Petermann factor", "@pk{0.000}"),
+            ("symmetry", "@sym{custom}")]
+
     def update(self, *_) -> None:
         st, res = self.state, self.state.result
         if res is None:
-            self.source.data = {k: [] for k in self.source.data}
+            _clear(self.source)
             return
         m = res.modes
         rates, shifts = m.decay_rates, m.shifts
-        fu, tu = st.frequency_label(), st.time_label()
-        x = st.to_frequency(shifts)
-        y = st.to_frequency(np.maximum(rates, RATE_FLOOR))
-        life = st.to_time(m.lifetimes)
+        fu = st.frequency_label()
+        x = np.asarray(st.to_frequency(shifts), float)
+        y = np.asarray(st.to_frequency(np.maximum(rates, RATE_FLOOR)), float)
         color_by = st.color_by
         if not m.has_vectors and color_by in ("participation_ratio", "petermann"):
             color_by = "decay_rate"  # until the eigenvectors arrive
         fig = {"participation_ratio": m.participation_ratio, "petermann": m.petermann,
                "shift": x, "decay_rate": np.log10(np.maximum(rates, RATE_FLOOR)),
                "symmetry": m.sector.astype(float)}[color_by]
-        rate_txt = [(_fmt(v, fu) if r > RATE_FLOOR else f"≤ {RATE_FLOOR:g} Γ0 (round-off)")
-                    for v, r in zip(st.to_frequency(rates), rates)]
-        self.source.data = dict(
-            x=x, y=y, c=fig, mode=np.arange(m.n), shift=[_fmt(v, fu) for v in x],
-            rate=rate_txt, life=[_fmt(v, tu) for v in life], pr=m.participation_ratio,
-            pk=m.petermann, tag=[radiance_label(r) for r in rates],
-            sym=[m.sector_names[s] for s in m.sector])
+        tags = [radiance_label(r) + (_TAG_ROUND_OFF if r <= RATE_FLOOR else "") for r in rates]
+        tag_names, tag_codes = np.unique(tags, return_inverse=True)
+        for hover, names in ((self.tag_names, list(tag_names)),
+                             (self.sector_names, list(m.sector_names))):
+            if hover.args["names"] != names:
+                hover.args = dict(names=names)
+        self._tooltips()
+        _assign(self.source, dict(
+            x=x, y=y, c=np.asarray(fig, float), mode=np.arange(m.n),
+            rate=np.asarray(st.to_frequency(rates), float),
+            life=np.asarray(st.to_time(m.lifetimes), float),
+            pr=np.asarray(m.participation_ratio, float), pk=np.asarray(m.petermann, float),
+            tag=tag_codes.astype(np.int32), sym=np.asarray(m.sector, np.int32)))
         if color_by == "symmetry":  # one colour per sector
             k = len(m.sector_names)
             self.mapper.update(palette=list(Category10[10][: max(3, k)]) if k <= 10 else Cividis256,
@@ -156,6 +366,9 @@ class SpectrumView:
         one = float(st.to_frequency(1.0))
         self.single.location = one
         self.single_label.y = one
+        _set_range(self.figure.x_range, _linear_span(x, half=0.5 * one))
+        # every point, the round-off floor included, and the single-emitter line
+        _set_range(self.figure.y_range, _log_span(y, [one], decades=None))
         self.update_marker()
 
     def update_marker(self, *_) -> None:
@@ -163,7 +376,8 @@ class SpectrumView:
         if res is None:
             return
         k = min(st.selected_mode, res.modes.n - 1)
-        self.marker.data = dict(x=[self.source.data["x"][k]], y=[self.source.data["y"][k]])
+        _assign(self.marker, dict(x=[float(self.source.data["x"][k])],
+                                  y=[float(self.source.data["y"][k])]))
 
     def _on_tap(self, attr, old, new) -> None:
         _select_tapped(self.state, self.source, new)
@@ -183,9 +397,10 @@ class ArrayView:
         self.source = ColumnDataSource(dict(x=[], y=[], r=[], phase=[], amp=[], idx=[]),
                                        name="choir-array-points")
         self.source.default_values = {"idx": -1, "r": 0.0, "phase": 0.0, "amp": 0.0}
-        p = figure(height=360, name="choir-array", sizing_mode="stretch_width", match_aspect=True,
+        p = figure(height=360, name="choir-array", sizing_mode="stretch_width", **_aspect_ranges(),
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
                    title="Array — selected mode on each emitter")
+        self.extent = _extent(p)
         self.mapper = LinearColorMapper(palette=PHASE_PALETTE, low=-np.pi, high=np.pi)
         r = p.circle("x", "y", radius="r", source=self.source, line_color="#222222",
                      line_width=0.6, fill_color={"field": "phase", "transform": self.mapper},
@@ -240,20 +455,30 @@ class ArrayView:
         nn = nearest_neighbour_distance(em) if em.n > 1 else 0.5
         r0 = 0.42 * float(st.to_length(min(nn, 1.0)))
         self._writing = True
-        try:
-            self.source.data = dict(x=pos[:, a], y=pos[:, b], r=r0 * np.maximum(amp, 0.18),
-                                    phase=np.angle(c), amp=amp ** 2 / np.sum(amp ** 2),
-                                    idx=np.arange(em.n))
+        try:  # a new mode changes r, phase and amp only: only those are sent
+            _assign(self.source, dict(x=pos[:, a], y=pos[:, b], r=r0 * np.maximum(amp, 0.18),
+                                      phase=np.angle(c), amp=amp ** 2 / np.sum(amp ** 2),
+                                      idx=np.arange(em.n)))
         finally:
             self._writing = False
         lab = st.length_label()
         names = "xyz"
         self.figure.xaxis.axis_label = f"{names[a]} [{lab}]"
         self.figure.yaxis.axis_label = f"{names[b]} [{lab}]"
-        self._draw_environment(pos, a, b, float(st.to_length(1.0)))
+        rings = self._draw_environment(pos, a, b, float(st.to_length(1.0)))
+        # the emitters (discs included) and any ring; axis lines run out of the frame
+        margin = 1.2 * r0
+        xs = np.concatenate([pos[:, a] - margin, pos[:, a] + margin,
+                             np.subtract(rings["x"], rings["r"]), np.add(rings["x"], rings["r"])])
+        ys = np.concatenate([pos[:, b] - margin, pos[:, b] + margin,
+                             np.subtract(rings["y"], rings["r"]), np.add(rings["y"], rings["r"])])
+        _set_extent(self.extent, xs.min(), xs.max(), ys.min(), ys.max())
 
-    def _draw_environment(self, pos: np.ndarray, a: int, b: int, scale: float) -> None:
-        """Waveguide axis and cavity axis/waist in the view plane (projected)."""
+    def _draw_environment(self, pos: np.ndarray, a: int, b: int, scale: float) -> dict:
+        """Waveguide axis and cavity axis/waist in the view plane (projected).
+
+        Returns the rings drawn (axes through the plane), which the plot's extent includes.
+        """
         env = self.state.result.environment
         parts = parts_of(env)
         lines = dict(xs=[], ys=[], color=[], dash=[], label=[])
@@ -292,8 +517,12 @@ class ArrayView:
                 rings["color"].append(color)
                 rings["label"].append(label + (" (waist)" if waist is not None else "") +
                                       " ⊥ this plane")
-        self.env_lines.data = lines
-        self.env_rings.data = rings
+        # the same lines after every selection or unit change: usually nothing is sent
+        _assign(self.env_lines, {k: [np.asarray(v, float) for v in vals] if k in ("xs", "ys")
+                                 else vals for k, vals in lines.items()})
+        _assign(self.env_rings, {k: np.asarray(v, float) if k in ("x", "y", "r") else v
+                                 for k, v in rings.items()})
+        return rings
 
     def _on_edit(self, attr, old, new) -> None:
         if self._writing or self.state.result is None:
@@ -324,7 +553,9 @@ class FarFieldView:
 
     Each disc is the orthographic view (u_x, u_y) = (sinθ cosφ, sinθ sinφ) of a
     hemisphere — what a lens's back focal plane shows; a lens of numerical
-    aperture NA collects the disc of radius NA, drawn dashed.
+    aperture NA collects the disc of radius NA, drawn dashed.  A unit of u_x
+    and of u_y have the same length on screen at every page width (the ranges
+    follow the frame's aspect), so the discs stay round.
     """
 
     GAP = 0.35
@@ -335,24 +566,23 @@ class FarFieldView:
         self.images = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]),
                                        name="choir-farfield-images")
         self.lens = ColumnDataSource(dict(x=[], y=[], r=[]))
-        p = figure(height=300, sizing_mode="stretch_width", match_aspect=True,
+        p = figure(frame_height=270, sizing_mode="stretch_width", **_aspect_ranges(),
                    tools="save,reset", name="choir-farfield", toolbar_location="above",
-                   x_range=Range1d(-1.15, off + 1.15), y_range=Range1d(-1.25, 1.3),
                    title="Far field of the selected mode, dP/dΩ")
+        # both discs and the labels above and below them, nothing more
+        _extent(p, x=(-1.04, off + 1.04), y=(-1.2, 1.2))
         self.mapper = LinearColorMapper(palette=Inferno256, low=0.0, high=1.0,
                                         nan_color="rgba(0,0,0,0)")
         p.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.images,
                 color_mapper=self.mapper)
-        for cx in (0.0, off):
-            p.circle(x=[cx], y=[0.0], radius=1.0, fill_alpha=0.0, line_color="#444444")
+        p.circle(x=[0.0, off], y=[0.0, 0.0], radius=1.0, fill_alpha=0.0, line_color="#444444")
         p.circle("x", "y", radius="r", source=self.lens, fill_alpha=0.0, line_color="#29b6f6",
                  line_width=2.5, line_dash="dashed")
-        p.add_layout(Label(x=0.0, y=1.05, text="upper hemisphere (+z)", text_align="center",
-                           text_font_size="11px"))
-        p.add_layout(Label(x=off, y=1.05, text="lower hemisphere (−z)", text_align="center",
-                           text_font_size="11px"))
-        self.lens_label = Label(x=off / 2, y=-1.22, text="", text_align="center",
-                                text_font_size="11px", text_color="#0277bd")
+        for cx, text in ((0.0, "upper hemisphere (+z)"), (off, "lower hemisphere (−z)")):
+            p.add_layout(Label(x=cx, y=1.03, text=text, text_align="center",
+                               text_baseline="bottom", text_font_size="11px"))
+        self.lens_label = Label(x=off / 2, y=-1.03, text="", text_align="center",
+                                text_baseline="top", text_font_size="11px", text_color="#0277bd")
         p.add_layout(self.lens_label)
         p.axis.visible = False
         p.grid.visible = False
@@ -371,13 +601,15 @@ class FarFieldView:
             return
         img = mres.far_field
         if img is None:
-            self.images.data = dict(image=[], x=[], y=[], dw=[], dh=[])
-            self.lens.data = dict(x=[], y=[], r=[])
+            _clear(self.images)
+            _clear(self.lens)
+            self.colorbar.visible = False  # no scale for a picture that is not there
             res = st.result
             self.lens_label.text = ("no far field: eigenvectors of a defective matrix carry no "
                                     "meaning" if res is not None and res.defective else
                                     "no free-space channel in this environment")
             return
+        self.colorbar.visible = True
         pix = img.shape[0]
         top = float(np.nanmax(img)) if np.any(np.isfinite(img)) else 1.0
         top = top if top > 0 else 1.0
@@ -390,46 +622,81 @@ class FarFieldView:
             self.mapper.update(low=0.0, high=top)
             self.colorbar.title = "dP/dΩ [Γ0 per sr]"
         up, down = img[:, :pix], img[:, pix:]
-        self.images.data = dict(image=[up, down], x=[-1.0, self._off - 1.0], y=[-1.0, -1.0],
-                                dw=[2.0, 2.0], dh=[2.0, 2.0])
+        _assign(self.images, dict(image=[up, down], x=[-1.0, self._off - 1.0], y=[-1.0, -1.0],
+                                  dw=[2.0, 2.0], dh=[2.0, 2.0]))
         cx = 0.0 if st.lens_axis == "+z" else self._off
-        self.lens.data = dict(x=[cx], y=[0.0], r=[mres.na])
+        _assign(self.lens, dict(x=[cx], y=[0.0], r=[float(mres.na)]))
         frac = mres.collected_up if st.lens_axis == "+z" else mres.collected_down
         self.lens_label.text = (f"lens NA {mres.na:.2f} along {st.lens_axis}: collects "
                                 f"{100 * frac:.3g} % of mode {mres.mode}'s emission")
+
+
+#: Colours of the decay plot's per-channel lines.
+_CHANNEL_COLOURS = ["#00897b", "#ad1457", "#1565c0", "#6d4c41", "#558b2f", "#f9a825"]
 
 
 class ProbeView:
     """Response to a weak probe, the field map at the spectrum's peak, and a decay curve.
 
     All three come from linear solves and e^{−iHt} acting on a vector (no
-    eigenvectors), so they stay meaningful for defective matrices.
+    eigenvectors), so they stay meaningful for defective matrices.  Every
+    line drawn has a legend entry below its plot; curves that are not drawn
+    (no |t|², no infinite-array comparison, a channel that receives nothing)
+    have none, and ``summary`` says what is left out and why.
     """
 
     def __init__(self, state: ExplorerState) -> None:
         self.state = state
+        self.summary = ""
+        self.figures = (self._spectrum_figure(), self._map_figure(), self._decay_figure())
+        state.param.watch(self.update, ["analysis", "units", "transition", "wavelength_nm",
+                                        "linewidth_mhz"])
+        self.update()
+
+    def _spectrum_figure(self):
         self.spec = ColumnDataSource(dict(x=[], y=[], t2=[], r2=[]), name="choir-probe-spectrum")
+        self.sheet = ColumnDataSource(dict(x=[], r2=[]), name="choir-probe-sheet")
         self.marker = Span(location=0.0, dimension="height", line_color=_ACCENT,
                            line_dash="dotted", line_width=2)
-        s = figure(height=260, sizing_mode="stretch_width", tools="pan,wheel_zoom,reset,save",
-                   toolbar_location="above", title="Probe spectrum", name="choir-probe-plot")
-        s.line("x", "y", source=self.spec, line_width=2.5, color="#4527a0")
+        s = figure(frame_height=PROBE_FRAME, sizing_mode="stretch_width",
+                   x_range=Range1d(-1.0, 1.0), y_range=Range1d(0.0, 1.0),
+                   tools="pan,wheel_zoom,reset,save", toolbar_location="above",
+                   title="Probe spectrum", name="choir-probe-plot")
+        # |t|², |r|² and the infinite array's reflection are probabilities: when the
+        # signal is a cross-section they get their own axis on the right
+        s.extra_y_ranges = {"probability": Range1d(0.0, 1.0)}
+        self.probability_axis = LinearAxis(y_range_name="probability", visible=False,
+                                           axis_label="|t|², |r|² (probabilities)")
+        s.add_layout(self.probability_axis, "right")
+        self.signal_line = s.line("x", "y", source=self.spec, line_width=2.5, color="#4527a0")
         self.t_line = s.line("x", "t2", source=self.spec, line_width=1.5, color="#00897b",
-                             line_dash="dashed", legend_label="|t|²")
+                             line_dash="dashed", y_range_name="probability")
         self.r_line = s.line("x", "r2", source=self.spec, line_width=1.5, color="#ad1457",
-                             line_dash="dotdash", legend_label="|r|²")
-        self.sheet = ColumnDataSource(dict(x=[], r2=[]), name="choir-probe-sheet")
+                             line_dash="dotdash", y_range_name="probability")
         self.sheet_line = s.line("x", "r2", source=self.sheet, line_width=1.5, color="#757575",
-                                 line_dash="dotted", legend_label="infinite array, reflection")
-        s.legend.location = "top_right"
-        s.legend.label_text_font_size = "10px"
+                                 line_dash="dotted", y_range_name="probability")
+        self.signal_item = LegendItem(label="signal", renderers=[self.signal_line])
+        self.t_item = LegendItem(label="|t|² transmitted", renderers=[self.t_line])
+        self.r_item = LegendItem(label="|r|² reflected", renderers=[self.r_line])
+        self.sheet_item = LegendItem(label="|r|² of the infinite array",
+                                     renderers=[self.sheet_line])
+        self.spec_legend = _legend(s, [self.signal_item, self.t_item, self.r_item,
+                                       self.sheet_item], ncols=2)
         s.add_layout(self.marker)
+        return s
+
+    def _map_figure(self):
         self.image = ColumnDataSource(dict(image=[], x=[], y=[], dw=[], dh=[]),
                                       name="choir-field-map")
         self.dots = ColumnDataSource(dict(x=[], y=[]))
-        m = figure(height=260, sizing_mode="stretch_width", match_aspect=True,
+        # a square map in a square frame: x and y share one scale (no data ranges to
+        # compute, so the figure may stay hidden while there is nothing to map)
+        m = figure(frame_height=PROBE_FRAME, frame_width=PROBE_FRAME, width=None, height=None,
+                   sizing_mode="fixed",
+                   x_range=Range1d(-1.0, 1.0), y_range=Range1d(-1.0, 1.0),
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
                    title="Field intensity at the spectrum's peak", name="choir-map-plot")
+        m.xaxis.ticker.desired_num_ticks = 4
         self.map_mapper = LinearColorMapper(palette=Inferno256, low=0.0, high=1.0,
                                             nan_color="rgba(0,0,0,0)")
         m.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.image,
@@ -438,97 +705,151 @@ class ProbeView:
         m.add_layout(ColorBar(color_mapper=self.map_mapper, width=10,
                               title="|E|² / |E_in(centre)|²", title_text_font_size="10px"),
                      "right")
+        return m
+
+    def _decay_figure(self):
         self.decay = ColumnDataSource(dict(t=[], p=[], w=[]), name="choir-decay")
-        self.channels = ColumnDataSource(dict(xs=[], ys=[], color=[], name=[]),
+        self.channels = ColumnDataSource(dict(xs=[], ys=[], color=[], name=[], label=[]),
                                          name="choir-decay-channels")
-        d = figure(height=260, sizing_mode="stretch_width", y_axis_type="log",
+        d = figure(frame_height=PROBE_FRAME, sizing_mode="stretch_width", y_axis_type="log",
+                   x_range=Range1d(0.0, 1.0), y_range=Range1d(0.1, 10.0),
                    tools="pan,wheel_zoom,reset,save", toolbar_location="above",
                    title="Decay", name="choir-decay-plot")
-        d.line("t", "p", source=self.decay, line_width=2.5, color="#4527a0",
-               legend_label="excited population")
-        d.line("t", "w", source=self.decay, line_width=1.5, color="#ef6c00", line_dash="dashed",
-               legend_label="emitted power [Γ0]")
+        p = d.line("t", "p", source=self.decay, line_width=2.5, color="#4527a0")
+        w = d.line("t", "w", source=self.decay, line_width=1.5, color="#ef6c00",
+                   line_dash="dashed")
         ch = d.multi_line("xs", "ys", source=self.channels, line_color="color", line_width=1.2,
                           line_dash="dotted")
-        d.add_tools(HoverTool(renderers=[ch], tooltips=[("emitted into", "@name")]))
-        d.legend.location = "bottom_left"
-        d.legend.label_text_font_size = "10px"
-        self.figures = (s, m, d)
-        self.summary = ""
-        state.param.watch(self.update, ["analysis", "units", "transition", "wavelength_nm",
-                                        "linewidth_mhz"])
-        self.update()
+        d.add_tools(HoverTool(renderers=[ch], tooltips=[("", "@label")]))
+        # one entry per channel line, named by the source's "label" column
+        self.channel_item = LegendItem(label={"field": "label"}, renderers=[ch])
+        self.decay_legend = _legend(d, [
+            LegendItem(label="excited population", renderers=[p]),
+            LegendItem(label="emitted, all channels", renderers=[w]), self.channel_item])
+        d.yaxis.axis_label = "population; emission rate [Γ0]"
+        return d
 
     def update(self, *_) -> None:
         st, an = self.state, self.state.analysis
         if an is None:
             return
-        s, m, d = self.figures
-        fu = "Δ/2π [MHz]" if st.units == "lab" else "Δ [Γ0]"
-        if an.scan is not None:
-            x = st.to_frequency(an.scan["detunings"])
-            has_tr = "t" in an.scan
-            t2 = np.abs(an.scan["t"]) ** 2 if has_tr else np.full(x.shape, np.nan)
-            r2 = np.abs(an.scan["r"]) ** 2 if has_tr else np.full(x.shape, np.nan)
-            self.spec.data = dict(x=x, y=an.signal, t2=t2, r2=r2)
-            self.t_line.visible = self.r_line.visible = has_tr
-            s.legend.visible = has_tr
-            s.yaxis.axis_label = an.signal_name
-            self.marker.location = float(st.to_frequency(an.map_detuning))
-            fit = an.fit
-            self.summary = (f"peak at {float(st.to_frequency(an.map_detuning)):.4g} "
-                            f"{st.frequency_label()}; Lorentzian fit: centre "
-                            f"{float(st.to_frequency(fit['centre'])):+.4g} "
-                            f"{st.frequency_label()}, width (FWHM) "
-                            f"{float(st.to_frequency(fit['width'])):.4g} {st.frequency_label()}"
-                            + ("" if fit["residual"] < 0.05 else " (poor fit: several "
-                               "resonances)"))
+        notes = [self._update_spectrum(an), self._update_map(an), self._update_decay(an),
+                 an.note]  # why there is no scan, or what the decay starts from instead
+        self.summary = " ".join(n[0].upper() + n[1:].rstrip(".") + "." for n in notes if n)
+
+    def _update_spectrum(self, an) -> str:
+        st, s = self.state, self.figures[0]
+        fu = st.frequency_label()
+        s.xaxis.axis_label = f"probe detuning {'Δ/2π' if st.units == 'lab' else 'Δ'} [{fu}]"
+        kinds = dict((v, k) for k, v in st.param.probe_kind.objects.items())
+        s.title.text = f"Spectrum, {kinds[an.probe.kind].split(' (')[0]} probe"
+        s.visible = an.scan is not None
+        if an.scan is None:  # e.g. a guided probe without a waveguide: the note says why
+            _clear(self.spec)
+            _clear(self.sheet)
+            return ""
+        x = np.asarray(st.to_frequency(an.scan["detunings"]), float)
+        # the signal's name carries its unit; an area [λ0²] is shown in the display unit
+        name = an.signal_name
+        area = "[λ0²]" in name
+        unit, per_area = area_unit(st) if area else ("", 1.0)
+        y = np.asarray(an.signal, float) * per_area
+        has_tr = "t" in an.scan
+        nan = np.full(x.shape, np.nan)
+        t2 = np.abs(an.scan["t"]) ** 2 if has_tr else nan
+        r2 = np.abs(an.scan["r"]) ** 2 if has_tr else nan
+        r_same = has_tr and not area and np.allclose(r2, y)  # the signal itself: drawn once
+        _assign(self.spec, dict(x=x, y=y, t2=t2, r2=r2))
+        sheet = an.sheet
+        if sheet is not None:
+            _assign(self.sheet, dict(x=np.asarray(st.to_frequency(sheet["detunings"]), float),
+                                     r2=np.asarray(sheet["R"], float)))
         else:
-            self.spec.data = dict(x=[], y=[], t2=[], r2=[])
-            self.summary = an.note
-        if an.sheet is not None:
-            self.sheet.data = dict(x=st.to_frequency(an.sheet["detunings"]), r2=an.sheet["R"])
-            self.summary += ("; dotted grey: the infinite array with the same lattice, plane wave"
-                             + (" at normal incidence" if an.probe.kind == "gaussian_beam" else "")
-                             + f", peak reflection {np.max(an.sheet['R']):.3g}")
-        else:
-            self.sheet.data = dict(x=[], r2=[])
-        self.sheet_line.visible = an.sheet is not None
-        s.xaxis.axis_label = f"probe detuning {fu}"
-        s.title.text = f"Probe spectrum — {dict((v, k) for k, v in st.param.probe_kind.objects.items())[an.probe.kind]}"
-        if an.map is not None:
-            u, v, inten = an.map
-            scale = float(st.to_length(1.0))
-            du = (u[1] - u[0]) * scale
-            self.image.data = dict(image=[inten], x=[u[0] * scale - du / 2],
-                                   y=[v[0] * scale - du / 2], dw=[(u[-1] - u[0]) * scale + du],
-                                   dh=[(v[-1] - v[0]) * scale + du])
-            self.map_mapper.update(low=0.0, high=float(np.nanpercentile(inten, 99.5)) or 1.0)
-            axes = {"xy": (0, 1), "xz": (0, 2), "yz": (1, 2)}[st.map_plane]
-            pos = st.result.emitters.positions * scale if st.result is not None else np.zeros((0, 3))
-            self.dots.data = dict(x=pos[:, axes[0]], y=pos[:, axes[1]])
-            m.xaxis.axis_label = f"{'xyz'[axes[0]]} [{st.length_label()}]"
-            m.yaxis.axis_label = f"{'xyz'[axes[1]]} [{st.length_label()}]"
-            m.title.text = f"|E|² at the peak, {st.map_plane}-plane"
-        else:
-            self.image.data = dict(image=[], x=[], y=[], dw=[], dh=[])
-            self.dots.data = dict(x=[], y=[])
-            m.title.text = "No field map: the probe travels in the waveguide"
+            _clear(self.sheet)
+        self.t_line.visible = has_tr
+        self.r_line.visible = has_tr and not r_same
+        self.sheet_line.visible = sheet is not None
+        self.signal_item.label = dict(value=name.split(" [")[0].split(" (")[0])
+        _show_items(self.spec_legend, {self.signal_item: True, self.t_item: self.t_line.visible,
+                                       self.r_item: self.r_line.visible,
+                                       self.sheet_item: self.sheet_line.visible})
+        s.yaxis[0].axis_label = name.replace("[λ0²]", f"[{unit}]") if area else name
+        probabilities = [t2 if has_tr else [], r2 if has_tr else [],
+                         sheet["R"] if sheet is not None else []]
+        drawn = any(np.size(v) for v in probabilities)
+        self.probability_axis.visible = area and drawn
+        if area:
+            _set_range(s.y_range, _linear_span(y, [0.0]))
+            _set_range(s.extra_y_ranges["probability"], _linear_span(*probabilities, [0.0, 1.0]))
+        else:  # everything is a probability: one axis
+            span = _linear_span(y, *probabilities, [0.0])
+            _set_range(s.y_range, span)
+            _set_range(s.extra_y_ranges["probability"], span)
+        _set_range(s.x_range, _linear_span(x, pad=0.0))
+        peak = float(st.to_frequency(an.map_detuning))
+        self.marker.location = peak
+        fit, tiny = an.fit, 1e-6 * float(np.ptp(x))  # below this: round-off of a grid point
+        centre = float(st.to_frequency(fit["centre"]))
+        text = (f"peak (red dotted line) at {_fmt_near_zero(peak, tiny, fu)}; Lorentzian fit: "
+                f"centre {_fmt_near_zero(centre, tiny, fu)}, "
+                f"width (FWHM) {_fmt(float(st.to_frequency(fit['width'])), fu)}"
+                + ("" if fit["residual"] < 0.05 else " (poor fit: several resonances)"))
+        if sheet is not None:
+            text += ("; dotted grey: the infinite array with the same lattice, plane wave"
+                     + (" at normal incidence" if an.probe.kind == "gaussian_beam" else "")
+                     + f", peak reflection {np.max(sheet['R']):.3g}")
+        return text
+
+    def _update_map(self, an) -> str:
+        st, m = self.state, self.figures[1]
+        m.visible = an.map is not None
+        if an.map is None:
+            _clear(self.image)
+            _clear(self.dots)
+            return ("no field map: the guided probe has no free-space field to map"
+                    if an.scan is not None and an.probe.kind == "guided" else "")
+        u, v, inten = an.map
+        scale = float(st.to_length(1.0))
+        du = (u[1] - u[0]) * scale
+        x0, y0 = u[0] * scale - du / 2, v[0] * scale - du / 2
+        w, h = (u[-1] - u[0]) * scale + du, (v[-1] - v[0]) * scale + du
+        _assign(self.image, dict(image=[inten], x=[x0], y=[y0], dw=[w], dh=[h]))
+        side = max(w, h)  # the map is square; the frame is
+        _set_range(m.x_range, (x0 + w / 2 - side / 2, x0 + w / 2 + side / 2))
+        _set_range(m.y_range, (y0 + h / 2 - side / 2, y0 + h / 2 + side / 2))
+        self.map_mapper.update(low=0.0, high=float(np.nanpercentile(inten, 99.5)) or 1.0)
+        axes = {"xy": (0, 1), "xz": (0, 2), "yz": (1, 2)}[st.map_plane]
+        pos = st.result.emitters.positions * scale if st.result is not None else np.zeros((0, 3))
+        _assign(self.dots, dict(x=pos[:, axes[0]], y=pos[:, axes[1]]))
+        m.xaxis.axis_label = f"{'xyz'[axes[0]]} [{st.length_label()}]"
+        m.yaxis.axis_label = f"{'xyz'[axes[1]]} [{st.length_label()}]"
+        m.title.text = f"|E|² at the peak, {st.map_plane}-plane"
+        return ""
+
+    def _update_decay(self, an) -> str:
+        st, d = self.state, self.figures[2]
         dec = an.decay
-        self.decay.data = dict(t=st.to_time(dec["times"]),
-                               p=np.maximum(dec["population"], 1e-300),
-                               w=np.maximum(dec["power"], 1e-300))
+        t = np.asarray(st.to_time(dec["times"]), float)
+        p, w = _positive_or_nan(dec["population"]), _positive_or_nan(dec["power"])
+        _assign(self.decay, dict(t=t, p=p, w=w))
         names = [k for k in dec if k not in ("times", "population", "power")]
-        if len(names) > 1:  # the split between channels, dotted (hover names them)
-            t = list(st.to_time(dec["times"]))
-            palette = ["#00897b", "#ad1457", "#1565c0", "#6d4c41", "#558b2f", "#f9a825"]
-            self.channels.data = dict(
-                xs=[t] * len(names), ys=[list(np.maximum(dec[k], 1e-300)) for k in names],
-                color=[palette[i % len(palette)] for i in range(len(names))], name=names)
-        else:
-            self.channels.data = dict(xs=[], ys=[], color=[], name=[])
+        # a channel that receives nothing has no place on a log axis: named, not drawn
+        silent = [k for k in names if not np.any(np.asarray(dec[k]) > 0)]
+        drawn = [k for k in names if k not in silent] if len(names) > 1 else []
+        ys = [_positive_or_nan(dec[k]) for k in drawn]
+        _assign(self.channels, dict(
+            xs=[t] * len(drawn), ys=ys,
+            color=[_CHANNEL_COLOURS[names.index(k) % len(_CHANNEL_COLOURS)] for k in drawn],
+            name=drawn, label=[f"emitted into {k}" for k in drawn]))
+        self.channel_item.visible = bool(drawn)
         d.title.text = f"Decay — {an.decay_label}"
         d.xaxis.axis_label = f"time [{st.time_label()}]"
+        _set_range(d.x_range, _linear_span(t, pad=0.0))
+        _set_range(d.y_range, _log_span(p, w, *ys))
+        if len(names) > 1 and silent:
+            return ("decay: nothing is emitted into " + " or ".join(silent)
+                    + " (zero at all times, so not drawn on the log axis)")
+        return ""
 
 
 #: Light-cone intervals along the band path that the view can shade.
@@ -560,11 +881,12 @@ class BandsView:
                                             off=[]), name="choir-bands-finite")
         self.marker = ColumnDataSource(dict(s=[], w=[], g=[]), name="choir-bands-marker")
         tools = "pan,wheel_zoom,box_zoom,reset,save"
-        sh = figure(height=320, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+        sh = figure(height=340, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+                    x_range=Range1d(0.0, 1.0), y_range=Range1d(-1.0, 1.0),
                     title="Collective shift of the infinite lattice", name="choir-bands-shift")
-        de = figure(height=320, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
+        de = figure(height=340, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
                     title="Decay rate of the infinite lattice", name="choir-bands-decay",
-                    x_range=sh.x_range)
+                    x_range=sh.x_range, y_range=Range1d(0.0, 1.0))
         self.mapper = LinearColorMapper(palette=Cividis256, low=-BAND_DECADES, high=0.0,
                                         low_color="#bdbdbd")
         self.cones = []
@@ -581,15 +903,16 @@ class BandsView:
                          fill_color={"field": "c", "transform": self.mapper})
         de.multi_line("xs", "gs", source=self.lines, line_color="color", line_width=2.0)
         fin = [fig.scatter("s", y, source=self.finite, size=7, marker="circle", fill_alpha=0.0,
-                           line_color="#212121", line_width=1.2, legend_label="modes of this array",
+                           line_color="#212121", line_width=1.2,
                            nonselection_line_alpha=1.0, selection_line_alpha=1.0)
                for fig, y in ((sh, "w"), (de, "g"))]
-        for fig, y in ((sh, "w"), (de, "g")):
-            fig.scatter("s", y, source=self.marker, size=18, fill_alpha=0.0, line_color=_ACCENT,
-                        line_width=3)
-            fig.legend.location = "top_left"
-            fig.legend.label_text_font_size = "10px"
-            fig.legend.background_fill_alpha = 0.7
+        self.finite_legends = []
+        for fig, y, r in ((sh, "w", fin[0]), (de, "g", fin[1])):
+            mark = fig.scatter("s", y, source=self.marker, size=18, fill_alpha=0.0,
+                               line_color=_ACCENT, line_width=3)
+            self.finite_legends.append(_legend(fig, [
+                LegendItem(label="modes of this array (click one to select it)", renderers=[r]),
+                LegendItem(label="selected mode", renderers=[mark])], ncols=2))
         sh.add_tools(HoverTool(renderers=[pts], tooltips=[
             ("band", "@band"), ("k", "@k"), ("shift", "@wt"), ("decay rate", "@gt")]))
         for fig, r in zip((sh, de), fin):
@@ -605,7 +928,9 @@ class BandsView:
                                            name="choir-bands-map")
         self.circles = ColumnDataSource(dict(x=[], y=[]), name="choir-bands-light-circles")
         self.map_marker = ColumnDataSource(dict(x=[], y=[]))
-        mp = figure(height=320, sizing_mode="stretch_width", tools=tools,
+        # square zone map in a square frame (hidden until there is a map: explicit ranges)
+        mp = figure(frame_width=250, frame_height=250, width=None, height=None, sizing_mode="fixed",
+                    tools=tools,
                     x_range=Range1d(-1.0, 1.0), y_range=Range1d(-1.0, 1.0),
                     toolbar_location="above", title="Decay rate over the Brillouin zone",
                     name="choir-bands-map-plot")
@@ -613,14 +938,12 @@ class BandsView:
                                             low_color="#bdbdbd", nan_color="rgba(0,0,0,0)")
         mp.image(image="image", x="x", y="y", dw="dw", dh="dh", source=self.map_source,
                  color_mapper=self.map_mapper)
-        mp.circle("x", "y", radius=1.0, source=self.circles, fill_alpha=0.0,
-                  line_color="#ef6c00", line_width=1.5, line_dash="dashed",
-                  legend_label="light circle |k + G| = k0")
-        mp.scatter("x", "y", source=self.map_marker, size=14, marker="x", line_color=_ACCENT,
-                   line_width=3)
-        mp.legend.location = "top_left"
-        mp.legend.label_text_font_size = "10px"
-        mp.legend.background_fill_alpha = 0.7
+        light = mp.circle("x", "y", radius=1.0, source=self.circles, fill_alpha=0.0,
+                          line_color="#ef6c00", line_width=1.5, line_dash="dashed")
+        mark = mp.scatter("x", "y", source=self.map_marker, size=14, marker="x",
+                          line_color=_ACCENT, line_width=3)
+        _legend(mp, [LegendItem(label="light circles |k + G| = k0", renderers=[light]),
+                     LegendItem(label="selected mode's k", renderers=[mark])], ncols=2)
         mp.xaxis.axis_label = "kx / k0"
         mp.yaxis.axis_label = "ky / k0"
         mp.add_layout(ColorBar(color_mapper=self.map_mapper, width=10, title_text_font_size="10px",
@@ -639,7 +962,7 @@ class BandsView:
         if br is None or br.lattice is None:
             for src in (self.points, self.lines, self.finite, self.marker, self.map_source,
                         self.circles, self.map_marker):
-                src.data = {k: [] for k in src.data}
+                _clear(src)
             self.summary = br.note if br is not None else ""
             self.selection_text = ""
             mp.visible = False
@@ -703,7 +1026,13 @@ class BandsView:
                                         band=pl["band"][keep],
                                         off=[f"{v / (2 * np.pi):.3f} k0" for v in pl["off_path"][keep]])
         else:
-            self.finite.data = {k: [] for k in self.finite.data}
+            _clear(self.finite)
+        for legend in self.finite_legends:  # no entry for circles that are not there
+            legend.visible = len(self.finite.data["s"]) > 0
+        _set_range(sh.x_range, _linear_span(path.distance, pad=0.015))
+        one = float(st.to_frequency(1.0))
+        _set_range(sh.y_range, _linear_span(w, self.finite.data["w"], half=one))
+        _set_range(de.y_range, _linear_span(g, self.finite.data["g"], [0.0], half=one))
         if br.map is not None:
             kx, ky = br.map[0] / (2 * np.pi), br.map[1] / (2 * np.pi)
             dx, dy = kx[1] - kx[0], ky[1] - ky[0]
@@ -713,8 +1042,8 @@ class BandsView:
             c = br.orders_centres / (2 * np.pi)
             self.circles.data = dict(x=c[:, 0], y=c[:, 1])
             half = 1.15 * float(max(kx[-1], ky[-1]))
-            mp.x_range.update(start=-half, end=half)
-            mp.y_range.update(start=-half, end=half)
+            _set_range(mp.x_range, (-half, half))
+            _set_range(mp.y_range, (-half, half))
             mp.visible = True
         else:
             mp.visible = False
@@ -789,8 +1118,10 @@ class SweepView:
 
     def _figures(self, scale: str, name: str):
         tools = "pan,wheel_zoom,box_zoom,reset,save"
+        default = (0.1, 10.0) if scale == "log" else (0.0, 1.0)
         p = figure(height=300, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
-                   title="Ensemble", name=name, x_axis_type=scale, y_axis_type=scale)
+                   title="Ensemble", name=name, x_axis_type=scale, y_axis_type=scale,
+                   x_range=Range1d(*default), y_range=Range1d(*default))
         r = p.scatter("x", "y", source=self.points, size=8, color="#4527a0")
         p.add_layout(Whisker(source=self.points, base="x", lower="lo", upper="hi",
                              line_color="#4527a0"))
@@ -799,7 +1130,7 @@ class SweepView:
                                                        ("realisations", "@n")]))
         h = figure(height=300, sizing_mode="stretch_width", tools=tools, toolbar_location="above",
                    title="Decay rates of all modes", name="choir-sweep-hist-plot",
-                   x_axis_type="log")
+                   x_axis_type="log", x_range=Range1d(0.1, 10.0), y_range=Range1d(0.0, 1.0))
         h.quad(left="left", right="right", top="top", bottom=0, source=self.hist,
                fill_color="#7e57c2", line_color="#4527a0")
         h.yaxis.axis_label = "number of modes"
@@ -837,10 +1168,19 @@ class SweepView:
             self.fit.data = dict(x=xx, y=conv(power_law(sw.fit, xx)))
         else:
             self.fit.data = dict(x=[], y=[])
+        if sw.fit is not None:
+            _set_range(p.x_range, _log_span(x, decades=None, at_least=0.0))
+            _set_range(p.y_range, _log_span(y - e, y + e, self.fit.data["y"], decades=None,
+                                            at_least=0.0))
+        else:
+            _set_range(p.x_range, _linear_span(x, pad=0.08, half=0.5))
+            _set_range(p.y_range, _linear_span(y - e, y + e, half=0.5))
         if sw.histogram is not None:
             edges, counts = sw.histogram
             ed = conv(edges)
             self.hist.data = dict(left=ed[:-1], right=ed[1:], top=counts)
+            _set_range(h.x_range, _log_span(ed, decades=None, at_least=0.0, pad=0.02))
+            _set_range(h.y_range, (0.0, 1.05 * max(1.0, float(np.max(counts, initial=0)))))
             h.xaxis.axis_label = f"decay rate [{st.frequency_label()}]"
             where = ""
             if plan.axes:

@@ -185,26 +185,36 @@ def _environment_group(state: ExplorerState, widgets: dict) -> list:
     state.param.watch(show_angles, "dipole")
     show_angles()
     widgets["environment"] = select(state, "environment")
-    for name in ("free_space_scale", "wg_forward", "wg_backward", "wg_loss", "wg_k", "cav_g",
-                 "cav_kappa", "cav_detuning"):
-        widgets[name] = slider(state, name)
-    groups = {
-        "free space": pn.Column(widgets["free_space_scale"], sizing_mode="stretch_width"),
-        "waveguide": pn.Column(widgets["wg_forward"], widgets["wg_backward"], widgets["wg_loss"],
-                               widgets["wg_k"], buttons(state, "wg_axis"),
-                               sizing_mode="stretch_width"),
-        "cavity": pn.Column(
-            widgets["cav_g"], widgets["cav_kappa"], widgets["cav_detuning"],
-            buttons(state, "cav_axis"), buttons(state, "cav_polarization"),
-            pn.widgets.FloatInput.from_param(state.param.cav_waist, sizing_mode="stretch_width"),
-            pn.widgets.Checkbox.from_param(state.param.cav_standing_wave),
-            sizing_mode="stretch_width"),
-    }
+
+    def free_space():
+        widgets["free_space_scale"] = slider(state, "free_space_scale")
+        return [widgets["free_space_scale"]]
+
+    def waveguide():
+        for name in ("wg_forward", "wg_backward", "wg_loss", "wg_k"):
+            widgets[name] = slider(state, name)
+        return [widgets["wg_forward"], widgets["wg_backward"], widgets["wg_loss"],
+                widgets["wg_k"], buttons(state, "wg_axis")]
+
+    def cavity():
+        for name in ("cav_g", "cav_kappa", "cav_detuning"):
+            widgets[name] = slider(state, name)
+        return [widgets["cav_g"], widgets["cav_kappa"], widgets["cav_detuning"],
+                buttons(state, "cav_axis"), buttons(state, "cav_polarization"),
+                pn.widgets.FloatInput.from_param(state.param.cav_waist,
+                                                 sizing_mode="stretch_width"),
+                pn.widgets.Checkbox.from_param(state.param.cav_standing_wave)]
+
+    # each channel's controls are built the first time the environment includes it
+    makers = {"free space": free_space, "waveguide": waveguide, "cavity": cavity}
+    groups = {key: pn.Column(sizing_mode="stretch_width", margin=0) for key in makers}
     info = pn.pane.HTML(styles=_SMALL, sizing_mode="stretch_width")
 
     def show(*_):
         for key, group in groups.items():
             group.visible = key in state.environment
+            if group.visible and not group.objects:
+                group.objects = makers[key]()
         res = state.result
         if res is None or res.environment is None:
             info.object = ""

@@ -54,6 +54,12 @@ _SUMMARY = {"font-size": "12px", "color": "#333"}
 FILL_DELAY_MS = 120
 #: A served page says "computing…" once a job has run this long [ms].
 BUSY_AFTER_MS = 250
+#: While other pages of the same server still wait for their first spectrum, a page
+#: puts off adding its controls (a first spectrum for everyone comes first), up to [ms].
+FILL_MAX_WAIT_MS = 3000
+
+#: Served pages whose first spectrum (or first message) has not gone out yet.
+_WAITING_FIRST: set[int] = set()
 
 
 def _url_refused(state: ExplorerState):
@@ -342,6 +348,14 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
 
     state._applying = True  # hold solves until the URL has been read
 
+    me = id(state)
+    _WAITING_FIRST.add(me)
+
+    def first_out(*_):
+        _WAITING_FIRST.discard(me)
+
+    state.param.watch(first_out, ["result", "message"])
+
     def start():
         state._applying = False
         saved = autosave.load(state.session_key) if autosave is not None else None
@@ -352,11 +366,16 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
                 state.session_key = Autosave.new_key()
             state.solve()  # on the pool
         # the rest of the page a moment later: a quick first spectrum goes out before it
-        doc.add_timeout_callback(fill, FILL_DELAY_MS)
+        doc.add_timeout_callback(lambda: fill(FILL_DELAY_MS), FILL_DELAY_MS)
 
-    def fill():
-        if not state.runner.gone():  # the page may have been closed meanwhile
-            _fill(state, views, slots)
+    def fill(waited: int):
+        if state.runner.gone():  # the page was closed meanwhile
+            _WAITING_FIRST.discard(me)
+            return
+        if (_WAITING_FIRST - {me}) and waited < FILL_MAX_WAIT_MS:
+            doc.add_timeout_callback(lambda: fill(waited + 100), 100)
+            return
+        _fill(state, views, slots)
 
     if autosave is not None:
         def keep(*_):
@@ -371,7 +390,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         keys = dict(_URL_KEYS, **({"session_key": "session"} if autosave is not None else {}))
         pn.state.location.sync(state, keys, on_error=_url_refused(state))
     pn.state.onload(start)
-    pn.state.on_session_destroyed(lambda ctx: state.close())
+    pn.state.on_session_destroyed(lambda ctx: (state.close(), _WAITING_FIRST.discard(me)))
     if isinstance(state.runner, ServerRunner):
         state.runner.on_gone = state.close
     return page

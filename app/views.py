@@ -965,8 +965,10 @@ class BandsView:
                 _clear(src)
             self.summary = br.note if br is not None else ""
             self.selection_text = ""
-            mp.visible = False
+            for fig in self.figures:  # no empty axes: the summary says why there are no bands
+                fig.visible = False
             return
+        sh.visible = de.visible = True
         path, b = br.path, br.bands
         fu = st.frequency_label()
         nk, nb = b.shift.shape

@@ -121,6 +121,14 @@ def test_a_guided_probe_has_no_map_and_says_why():
     assert "no field map: the guided probe" in probe.summary.lower()
 
 
+def test_without_bands_the_bands_figures_are_hidden_and_the_summary_says_why():
+    page = _page("nonagon_ring")  # a ring has no infinite counterpart
+    page.explorer_state.bands_visible = True
+    view = _open(page, "bands")
+    assert not any(fig.visible for fig in view.figures)
+    assert "No bands" in view.summary
+
+
 def test_legends_sit_outside_the_plot_frames():
     page = _page("mirror_square_16x16")
     page.explorer_state.bands_visible = True  # (the bands section computes while open)

@@ -107,7 +107,7 @@ def _probe_section(state: ExplorerState, views: dict) -> Section:
         summary = pn.pane.HTML(html.escape(probe.summary), styles=_SUMMARY,
                                sizing_mode="stretch_width")
         state.param.watch(lambda *_: setattr(summary, "object", html.escape(probe.summary)),
-                          "analysis")
+                          ["analysis", "units", "transition", "wavelength_nm", "linewidth_mhz"])
         return [pn.Row(controls.probe_controls(state, widgets),
                        pn.Column(controls.note(
                            "A weak probe in linear response, far below saturation; the field "
@@ -162,7 +162,7 @@ def _bands_section(state: ExplorerState, views: dict) -> Section:
 def _sweep_section(state: ExplorerState, views: dict) -> Section:
     def build():
         view = views["sweep"] = SweepView(state)
-        run = pn.widgets.Button(label="Run", button_type="primary", width=110)
+        run = pn.widgets.Button(label="Run", color="primary", width=110)
         stop = pn.widgets.Button(label="Cancel", width=110, disabled=True)
         run.on_click(lambda e: state.runner.on_loop(state.run_sweep))
         stop.on_click(lambda e: state.cancel_sweep())

@@ -7,6 +7,7 @@ from the project's browser-test notes; common practice, no source.
 from __future__ import annotations
 
 import os
+import re
 import shutil
 import socket
 import subprocess
@@ -80,6 +81,12 @@ def stop_server(proc: subprocess.Popen, log_name: str) -> str:
     proc.terminate()
     proc.wait(timeout=20)
     log = (ARTIFACTS / log_name).read_text()
+    # A tab closed while a message to it is in flight makes tornado log the failed write
+    # ("Task exception was never retrieved … WebSocketClosedError"): the server is fine
+    # and the page is gone, so that one report is not a failure; any other traceback is.
+    log = re.sub(r"Task exception was never retrieved\nfuture: <Task finished[^\n]*"
+                 r"WebSocketClosedError\(\)>\n(?:(?:Traceback|  |\S+Error|During|$)[^\n]*\n)*",
+                 "", log, flags=re.M)
     assert "Traceback" not in log, log[-3000:]  # the server must never fail behind the page
     assert "bokeh.core.validation" not in log, log[-3000:]  # e.g. W-1005 sizing warnings
     return log
@@ -205,3 +212,4 @@ def tab(browser, server):
     errors, warnings = t.errors, t.warnings
     t.close()
     assert errors == [], f"JavaScript errors: {errors}"
+    assert warnings == [], f"browser console warnings: {warnings}"

@@ -349,7 +349,6 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
     state._applying = True  # hold solves until the URL has been read
 
     me = id(state)
-    _WAITING_FIRST.add(me)
 
     def first_out(*_):
         _WAITING_FIRST.discard(me)
@@ -357,6 +356,8 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
     state.param.watch(first_out, ["result", "message"])
 
     def start():
+        # only a page that has loaded waits for a spectrum (a plain GET never gets here)
+        _WAITING_FIRST.add(me)
         state._applying = False
         saved = autosave.load(state.session_key) if autosave is not None else None
         if saved is not None:  # a reload, or the server restarted: nothing is lost

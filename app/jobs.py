@@ -30,6 +30,7 @@ from physics import large
 from physics import scenario as scn
 from physics.driving import Probe, field_intensity_map, fit_resonance, probe_scan, scan_signal
 from physics.dynamics import decay_observables, evolve, pulse_state, single_emitter_state
+from physics.free_space import FreeSpace
 from physics.far_field import far_field_image, lens_fraction
 from physics.geometry import Emitters
 from physics.hamiltonian import coupling_matrix
@@ -179,7 +180,11 @@ def mode_figures(res: Result, m: int, na: float) -> ModeResult:
         img = weight * np.hstack([far_field_image(em, c, u, side) for side in ("+z", "-z")])
     up = lens_fraction(em, env, c, na, "+z", rate)
     down = lens_fraction(em, env, c, na, "-z", rate)
-    return ModeResult(m, img, up, down, na, env.emitted_power(em, c))
+    # free space alone has one output: a unit eigenvector emits its decay rate into it
+    # (c†Γc = Γ_m), no coupling matrix needed
+    channels = ({env.describe(): rate} if isinstance(env, FreeSpace)
+                else env.emitted_power(em, c))
+    return ModeResult(m, img, up, down, na, channels)
 
 
 def probe_analysis(res: Result, probe: Probe, initial: str, mode: int, t_max: float,

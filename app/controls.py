@@ -46,6 +46,23 @@ def note(text: str, size: int = 11) -> pn.pane.HTML:
                         sizing_mode="stretch_width", margin=(0, 10))
 
 
+class _NowFloatSlider(pn.widgets.FloatSlider):
+    """A float slider whose moves reach the server at once.
+
+    Panel waits 50 ms after a widget's first change to gather more; the
+    explorer's jobs already drop overtaken requests (``jobs.Latest``), so the
+    wait would only delay every step.
+    """
+
+    _priority_changes = ["value", "value_throttled"]
+
+
+class _NowIntSlider(pn.widgets.IntSlider):
+    """An integer slider whose moves reach the server at once (see _NowFloatSlider)."""
+
+    _priority_changes = ["value", "value_throttled"]
+
+
 def slider(state: ExplorerState, name: str):
     """A slider that recomputes while dragging for small arrays, on release for large ones.
 
@@ -54,7 +71,7 @@ def slider(state: ExplorerState, name: str):
     """
     p = state.param[name]
     integer = name in INTEGER_SLIDERS
-    cls = pn.widgets.IntSlider if integer else pn.widgets.FloatSlider
+    cls = _NowIntSlider if integer else _NowFloatSlider
     kw = {} if integer else {"step": p.step or 0.01}
     lo, hi = p.get_soft_bounds()
     value = getattr(state, name)

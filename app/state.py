@@ -377,9 +377,13 @@ class ExplorerState(param.Parameterized):
                 sc = res.scenario
                 self._solver.request(lambda: jobs.solve(sc, full=True))
             return
-        if current:
-            self.busy = False
         self._remember(res)
+        if not current:
+            # overtaken by a newer step (a drag): spectrum and array follow at once, the
+            # mode figures, probe and bands are computed for the latest step only
+            self.result = res
+            return
+        self.busy = False
         mode = min(self.selected_mode, res.modes.n - 1)
         self.result = res
         if mode != self.selected_mode:

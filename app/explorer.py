@@ -57,6 +57,9 @@ BUSY_AFTER_MS = 250
 #: While other pages of the same server still wait for their first spectrum, a page
 #: puts off adding its controls (a first spectrum for everyone comes first), up to [ms].
 FILL_MAX_WAIT_MS = 3000
+#: … and waits for its own first spectrum up to this long (a slow solve runs on the
+#: pool meanwhile; building controls on the loop would only hold its result back) [ms].
+FILL_OWN_WAIT_MS = 1000
 
 #: Served pages whose first spectrum (or first message) has not gone out yet.
 _WAITING_FIRST: set[int] = set()
@@ -373,8 +376,10 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         if state.runner.gone():  # the page was closed meanwhile
             _WAITING_FIRST.discard(me)
             return
-        if (_WAITING_FIRST - {me}) and waited < FILL_MAX_WAIT_MS:
-            doc.add_timeout_callback(lambda: fill(waited + 100), 100)
+        mine = me in _WAITING_FIRST and waited < FILL_OWN_WAIT_MS
+        others = (_WAITING_FIRST - {me}) and waited < FILL_MAX_WAIT_MS
+        if mine or others:
+            doc.add_timeout_callback(lambda: fill(waited + 50), 50)
             return
         _fill(state, views, slots)
 

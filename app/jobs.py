@@ -56,8 +56,14 @@ DECAY_POINTS = 151
 BANDS_PATH_POINTS = 240
 BANDS_MAP_PIXELS = 61
 BANDS_PLACE_LIMIT = 2500
-#: Arrays from this size are solved eigenvalues first, eigenvectors second.
+#: Arrays from this size are solved eigenvalues first, eigenvectors second …
 LAZY_FROM = 1000
+#: … and so are arrays whose largest symmetry block is this large (a drawn or jittered
+#: array without symmetry): the spectrum first, then the selected mode's own vector by
+#: inverse iteration, then every eigenvector.
+VECTORS_LATER_FROM = 300
+#: Largest array whose selected mode is found by inverse iteration before all vectors.
+ONE_MODE_LIMIT = 3000
 #: Largest symmetry block whose eigenvectors the explorer computes (time and memory).
 EXPLORER_BLOCK_LIMIT = 5000
 
@@ -97,6 +103,11 @@ class ModeResult:
     collected_down: float  # … along −z
     na: float
     channels: dict  # power into each channel [Γ0]
+    # when the result has eigenvalues only: this mode's own vector (by inverse iteration)
+    vector: np.ndarray | None = None
+    participation: float = math.nan
+    petermann: float = math.nan
+    scenario: Any = None  # the scenario these figures belong to
 
 
 @dataclass(frozen=True)
@@ -148,9 +159,13 @@ class SweepResult:
 # ---------------------------------------------------------------- jobs
 
 def solve(sc: scn.Scenario, *, full: bool = True) -> Result:
-    """Modes of a scenario; with ``full=False`` and LAZY_FROM emitters or more, eigenvalues only."""
+    """Modes of a scenario; with ``full=False``, eigenvalues only for a large array or one
+    whose largest symmetry block has VECTORS_LATER_FROM emitters or more."""
     em = sc.emitters()
-    if em.n >= LAZY_FROM and not full:
+    later = em.n >= LAZY_FROM or (
+        em.n >= VECTORS_LATER_FROM
+        and large.largest_block(em, sc.environment_model()) >= VECTORS_LATER_FROM)
+    if later and not full:
         env = sc.environment_model()
         w, sector, names = large.spectrum(em, env)
         return Result(sc, em, Modes.spectrum_only(w, sector, names), (), env)
@@ -168,10 +183,20 @@ def solve(sc: scn.Scenario, *, full: bool = True) -> Result:
 
 
 def mode_figures(res: Result, m: int, na: float) -> ModeResult:
-    """Far field on both hemispheres, lens fractions and channel powers of mode ``m``."""
+    """Far field on both hemispheres, lens fractions and channel powers of mode ``m``.
+
+    A result with eigenvalues only (eigenvalues first) gets the mode's own right
+    and left vectors by inverse iteration (:func:`physics.large.one_mode`).
+    """
     if res.defective:
-        return ModeResult(m, None, math.nan, math.nan, na, {})
-    em, env, c = res.emitters, res.environment, res.modes.vectors[:, m]
+        return ModeResult(m, None, math.nan, math.nan, na, {}, scenario=res.scenario)
+    em, env = res.emitters, res.environment
+    one = None
+    if res.modes.has_vectors:
+        c = res.modes.vectors[:, m]
+    else:
+        one = large.one_mode(coupling_matrix(em, env), res.modes.eigenvalues[m])
+        c = one.vector
     rate = float(res.modes.decay_rates[m])  # total emitted power of a unit eigenvector
     weight = env.free_space_weight
     img = None
@@ -184,7 +209,10 @@ def mode_figures(res: Result, m: int, na: float) -> ModeResult:
     # (c†Γc = Γ_m), no coupling matrix needed
     channels = ({env.describe(): rate} if isinstance(env, FreeSpace)
                 else env.emitted_power(em, c))
-    return ModeResult(m, img, up, down, na, channels)
+    if one is None:
+        return ModeResult(m, img, up, down, na, channels, scenario=res.scenario)
+    return ModeResult(m, img, up, down, na, channels, c, one.participation_ratio, one.petermann,
+                      res.scenario)
 
 
 def probe_analysis(res: Result, probe: Probe, initial: str, mode: int, t_max: float,

@@ -375,6 +375,7 @@ class ExplorerState(param.Parameterized):
             self.result = res
             if current:
                 sc = res.scenario
+                self._solve_mode()  # the selected mode's own vector, on the other thread
                 self._solver.request(lambda: jobs.solve(sc, full=True))
             return
         self._remember(res)
@@ -385,10 +386,13 @@ class ExplorerState(param.Parameterized):
             return
         self.busy = False
         mode = min(self.selected_mode, res.modes.n - 1)
+        shown = self.mode_result  # figures of this very scenario found before all vectors
+        same = (shown is not None and shown.scenario == res.scenario and shown.mode == mode
+                and shown.na == self.lens_na and self._mode_job.idle)
         self.result = res
         if mode != self.selected_mode:
             self.selected_mode = mode  # its watcher computes the mode figures
-        else:
+        elif not same:
             self._solve_mode()
         self._analyse()
         self._compute_bands()
@@ -399,7 +403,8 @@ class ExplorerState(param.Parameterized):
 
     def _solve_mode(self) -> None:
         res = self.result
-        if res is None or not res.modes.has_vectors or self._closed:
+        if res is None or self._closed or (not res.modes.has_vectors
+                                           and res.emitters.n > jobs.ONE_MODE_LIMIT):
             return
         m, na = min(self.selected_mode, res.modes.n - 1), self.lens_na
         self._mode_job.request(lambda: jobs.mode_figures(res, m, na))

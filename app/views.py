@@ -432,7 +432,8 @@ class ArrayView:
         self.figure = p
         self._writing = False
         self.source.on_change("data", self._on_edit)
-        state.param.watch(self.update, ["result", "selected_mode", "units", "projection",
+        state.param.watch(self.update, ["result", "mode_result", "selected_mode", "units",
+                                        "projection",
                                         "transition", "wavelength_nm", "linewidth_mhz"])
         self.update()
 
@@ -445,8 +446,18 @@ class ArrayView:
             return
         em, m = res.emitters, res.modes
         k = min(st.selected_mode, m.n - 1)
-        # no meaningful profile (defective), or not computed yet (eigenvalues first)
-        c = m.vectors[:, k] if not res.defective and m.has_vectors else np.ones(m.n)
+        # no meaningful profile (defective), or not computed yet (eigenvalues first: the
+        # selected mode's own vector comes with its figures, all vectors later)
+        mres = st.mode_result
+        if res.defective:
+            c = np.ones(m.n)
+        elif m.has_vectors:
+            c = m.vectors[:, k]
+        elif mres is not None and mres.mode == k and mres.vector is not None \
+                and mres.scenario is res.scenario:
+            c = mres.vector
+        else:
+            c = np.ones(m.n)
         big = c[np.argmax(np.abs(c))]
         c = c * np.conj(big) / abs(big) ** 2  # largest amplitude → 1 (real, positive)
         amp = np.abs(c)
@@ -1219,12 +1230,16 @@ def mode_card_html(state: ExplorerState) -> str:
         return (f"<div style='font-size:13px'><b style='font-size:15px'>Eigenvalue {k}</b> of "
                 f"{m.n}<p>decay rate {rate:.4g} Γ0, shift {shift:+.4g} Γ0</p>"
                 f"<p style='color:#b71c1c'>{html.escape(DEFECTIVE_NOTE)}</p></div>")
-    if not m.has_vectors:
+    own = (mres is not None and mres.mode == k and mres.vector is not None
+           and mres.scenario is res.scenario)
+    if not m.has_vectors and not own:
         rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
         return (f"<div style='font-size:13px'><b style='font-size:15px'>Mode {k}</b> of {m.n}"
                 f"<p>decay rate {rate:.4g} Γ0, shift {shift:+.4g} Γ0</p><p style='color:#555'>"
-                f"Eigenvalues first: the eigenvectors of this large array are being computed; "
+                f"Eigenvalues first: the eigenvectors of this array are being computed; "
                 f"the mode's profile, far field and figures follow.</p></div>")
+    pr = m.participation_ratio[k] if m.has_vectors else mres.participation
+    pk = m.petermann[k] if m.has_vectors else mres.petermann
     rate, shift = float(m.decay_rates[k]), float(m.shifts[k])
     fu, tu = state.frequency_label(), state.time_label()
     tag = radiance_label(rate)
@@ -1237,10 +1252,10 @@ def mode_card_html(state: ExplorerState) -> str:
         (f"decay rate {pre}", f"{rate_txt} &nbsp;({rate:.4g} Γ0)"),
         (f"shift {spre}", _fmt(float(state.to_frequency(shift)), fu)),
         ("lifetime 1/Γ", _fmt(float(life), tu)),
-        ("participation ratio", f"{m.participation_ratio[k]:.4g} of {m.n} emitters"),
-        ("Petermann factor", f"{m.petermann[k]:.4g}"),
+        ("participation ratio", f"{pr:.4g} of {m.n} emitters"),
+        ("Petermann factor", f"{pk:.4g}"),
     ]
-    if m.multiplicity[k] > 1:
+    if m.has_vectors and m.multiplicity[k] > 1:
         rows.append(("degeneracy", f"{m.multiplicity[k]}-fold"))
     if m.sector_names != ("no symmetry used",):
         rows.append(("symmetry", m.symmetry_label(k)))

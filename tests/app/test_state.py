@@ -325,11 +325,42 @@ def test_large_arrays_show_eigenvalues_first_then_vectors(monkeypatch):
     assert len(array.source.data["x"]) == 256
     ref = solve_modes(st.result.emitters, st.result.environment, use_symmetry=False)
     np.testing.assert_allclose(st.result.modes.decay_rates, ref.decay_rates, atol=1e-10)
-    runner.release(0)  # second step: eigenvectors
+    assert len(runner.jobs) == 2 and len(runner.solves()) == 1  # the mode's own vector, all
+    mode_job = 1 - runner.solves()[0]
+    runner.release(mode_job)  # second step: the selected mode by inverse iteration
+    mres = st.mode_result
+    k = st.selected_mode
+    assert not st.result.modes.has_vectors and mres.vector is not None
+    assert abs(abs(np.vdot(ref.vectors[:, k], mres.vector)) - 1.0) < 1e-9  # same mode
+    assert mres.participation == pytest.approx(ref.participation_ratio[k], rel=1e-8)
+    assert "participation ratio" in mode_card_html(st)
+    amp = np.array(array.source.data["amp"])
+    np.testing.assert_allclose(amp, np.abs(mres.vector) ** 2, atol=1e-12)  # the mode's profile
+    runner.release(0)  # third step: every eigenvector
     assert st.result.modes.has_vectors and not st.busy
-    while runner.jobs:  # mode figures, probe analysis
+    assert st.mode_result is mres and not runner.jobs  # its figures stand: not computed twice
+    assert "participation ratio" in mode_card_html(st)
+
+
+def test_arrays_without_symmetry_show_the_spectrum_then_the_selected_mode():
+    """A jittered 20 × 20 array (one block of 400): eigenvalues first, then the selected
+    mode's own vector, then all vectors — same eigenvalues and vector as the dense solve."""
+    runner = ManualRunner()
+    st = ExplorerState(runner=runner)
+    st.param.update(nx=20, ny=20, spacing=0.3, jitter_x=0.01, jitter_y=0.01, jitter_z=0.01)
+    while runner.jobs:
         runner.release(0)
-    assert st.mode_result is not None and "participation ratio" in mode_card_html(st)
+    runner.jobs.clear()
+    st.spacing = 0.32
+    runner.release(0)
+    assert not st.result.modes.has_vectors
+    ref = solve_modes(st.result.emitters, st.result.environment, use_symmetry=False)
+    np.testing.assert_allclose(st.result.modes.eigenvalues, ref.eigenvalues, atol=1e-10)
+    runner.release(1 - runner.solves()[0])
+    k = st.selected_mode
+    assert abs(abs(np.vdot(ref.vectors[:, k], st.mode_result.vector)) - 1.0) < 1e-9
+    runner.release(0)
+    assert st.result.modes.has_vectors
 
 
 def test_a_scenario_solved_before_comes_from_the_cache():

@@ -102,3 +102,44 @@ def test_participation_ratio_of_chosen_modes_matches_the_dense_one():
     ref = _dense(em)
     got = large.chosen_modes(em, FreeSpace(), 5, "subradiant")
     np.testing.assert_allclose(got.participation_ratio, ref.participation_ratio[:5], rtol=1e-8)
+
+
+@pytest.mark.parametrize("kind", ["jittered", "chiral-guide-partly", "ring"])
+def test_one_mode_matches_the_full_decomposition(kind):
+    """Inverse iteration from a known eigenvalue gives that mode's vector, left vector,
+    participation ratio and Petermann factor as the dense solve does (LAPACK via numpy;
+    Golub & Van Loan, Matrix Computations (2013) §7.6.1; common practice, no source)."""
+    from physics import FreeSpace, coupling_matrix, lattices, solve_modes
+    from physics.geometry import Emitters
+    from physics.large import one_mode
+    from physics.waveguide import Waveguide
+
+    rng = np.random.default_rng(3)
+    if kind == "jittered":
+        em0 = lattices.square(nx=12, ny=12, spacing=0.3, dipole="x")
+        em = Emitters(positions=em0.positions + rng.normal(scale=0.02, size=(144, 3)),
+                      dipoles=em0.dipoles[0])
+        env = FreeSpace()
+    elif kind == "chiral-guide-partly":
+        em = lattices.chain(n=20, spacing=0.37, dipole="z", axis="x")
+        env = FreeSpace() + Waveguide(0.3, 0.1, k_guided=7.0, axis="x")
+    else:  # degenerate pairs: any vector of the pair's space is valid
+        em = lattices.ring(n=15, spacing=0.3, dipole="tangential")
+        env = FreeSpace()
+    H = coupling_matrix(em, env)
+    modes = solve_modes(em, env, use_symmetry=False)
+    tol = 1e-9  # inverse iteration converges to rounding in three steps here
+    for m in (0, modes.n // 2, modes.n - 1):
+        one = one_mode(H, modes.eigenvalues[m])
+        assert abs(one.eigenvalue - modes.eigenvalues[m]) < tol * max(1.0, abs(one.eigenvalue))
+        assert one.residual < tol * np.linalg.norm(H)
+        assert abs(np.vdot(one.left, one.vector) - 1.0) < tol
+        if modes.multiplicity[m] == 1:  # a simple eigenvalue: the same vector up to phase
+            assert abs(abs(np.vdot(modes.vectors[:, m], one.vector)) - 1.0) < tol
+            assert one.participation_ratio == pytest.approx(modes.participation_ratio[m],
+                                                            rel=1e-8)
+            assert one.petermann == pytest.approx(modes.petermann[m], rel=1e-6)
+        else:  # inside the degenerate space of mode m
+            space = modes.vectors[:, modes.cluster == modes.cluster[m]]
+            coeff = np.linalg.lstsq(space, one.vector, rcond=None)[0]
+            assert np.linalg.norm(space @ coeff - one.vector) < 1e-8

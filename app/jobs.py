@@ -60,8 +60,10 @@ BANDS_PLACE_LIMIT = 2500
 LAZY_FROM = 1000
 #: … and so are arrays whose largest symmetry block is this large (a drawn or jittered
 #: array without symmetry): the spectrum first, then the selected mode's own vector by
-#: inverse iteration, then every eigenvector.
-VECTORS_LATER_FROM = 300
+#: inverse iteration, then every eigenvector.  Below, one full solve settles every view
+#: sooner (at N = 400 eigenvalues alone save ~60 ms of ~150 ms, and the full solve that
+#: must follow costs ~250 ms more; bench/bench_browser.py).
+VECTORS_LATER_FROM = 600
 #: Largest array whose selected mode is found by inverse iteration before all vectors.
 ONE_MODE_LIMIT = 3000
 #: Largest symmetry block whose eigenvectors the explorer computes (time and memory).

@@ -343,11 +343,11 @@ def test_large_arrays_show_eigenvalues_first_then_vectors(monkeypatch):
 
 
 def test_arrays_without_symmetry_show_the_spectrum_then_the_selected_mode():
-    """A jittered 20 × 20 array (one block of 400): eigenvalues first, then the selected
+    """A jittered 25 × 25 array (one block of 625): eigenvalues first, then the selected
     mode's own vector, then all vectors — same eigenvalues and vector as the dense solve."""
     runner = ManualRunner()
     st = ExplorerState(runner=runner)
-    st.param.update(nx=20, ny=20, spacing=0.3, jitter_x=0.01, jitter_y=0.01, jitter_z=0.01)
+    st.param.update(nx=25, ny=25, spacing=0.3, jitter_x=0.01, jitter_y=0.01, jitter_z=0.01)
     while runner.jobs:
         runner.release(0)
     runner.jobs.clear()

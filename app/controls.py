@@ -63,6 +63,24 @@ class _NowIntSlider(pn.widgets.IntSlider):
     _priority_changes = ["value", "value_throttled"]
 
 
+class Lazy:
+    """A place for widgets that are built the first time they are shown.
+
+    Hidden controls (the radius of a disk while a square is shown, the angles of
+    a dipole given by a preset, a custom transition's inputs) cost the server a
+    model each for every page; built on first show, they cost nothing until used.
+    """
+
+    def __init__(self, build) -> None:
+        self._build = build
+        self.pane = pn.Column(sizing_mode="stretch_width", margin=0, visible=False)
+
+    def show(self, visible: bool) -> None:
+        if visible and not self.pane.objects:
+            self.pane.objects = list(self._build())
+        self.pane.visible = visible
+
+
 def slider(state: ExplorerState, name: str):
     """A slider that recomputes while dragging for small arrays, on release for large ones.
 
@@ -120,20 +138,28 @@ def _card(title: str, *items, collapsed: bool = False) -> pn.Card:
 
 
 def _array_group(state: ExplorerState, widgets: dict) -> list:
-    for name in ("n", "nx", "ny", "nz", "spacing", "spacing_y", "radius"):
-        widgets[name] = slider(state, name)
     widgets["lattice"] = select(state, "lattice")
-    widgets["disk_lattice"] = select(state, "disk_lattice")
-    widgets["chain_axis"] = buttons(state, "chain_axis")
-    geometry = ("n", "nx", "ny", "nz", "spacing", "spacing_y", "radius", "disk_lattice",
-                "chain_axis")
+
+    def make(key):
+        def build():
+            if key in ("disk_lattice",):
+                widgets[key] = select(state, key)
+            elif key == "chain_axis":
+                widgets[key] = buttons(state, key)
+            else:
+                widgets[key] = slider(state, key)
+            return [widgets[key]]
+        return Lazy(build)
+
+    geometry = {key: make(key) for key in ("n", "nx", "ny", "nz", "spacing", "spacing_y",
+                                           "radius", "disk_lattice", "chain_axis")}
     explicit = note("<i>Explicit positions: edit them in the array view (drawing tool).</i>", 12)
     info = pn.pane.HTML(sizing_mode="stretch_width", styles=_SMALL)
 
     def show(*_):
         keep = _VISIBLE[state.lattice]
-        for key in geometry:
-            widgets[key].visible = key in keep
+        for key, place in geometry.items():
+            place.show(key in keep)
         explicit.visible = state.lattice == "explicit"
         if state.result is None:
             return
@@ -152,7 +178,7 @@ def _array_group(state: ExplorerState, widgets: dict) -> list:
                                                sizing_mode="stretch_width")
     undo.on_click(lambda e: state.runner.on_loop(state.undo))
     state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
-    return [widgets["lattice"], *(widgets[k] for k in geometry), explicit, info, undo]
+    return [widgets["lattice"], *(g.pane for g in geometry.values()), explicit, info, undo]
 
 
 def nearest_distance(state: ExplorerState) -> float:
@@ -193,11 +219,17 @@ def imperfection_controls(state: ExplorerState, widgets: dict) -> list:
 
 def _environment_group(state: ExplorerState, widgets: dict) -> list:
     widgets["dipole"] = select(state, "dipole")
-    widgets["theta_deg"], widgets["phi_deg"] = slider(state, "theta_deg"), slider(state, "phi_deg")
-    angles = pn.Column(widgets["theta_deg"], widgets["phi_deg"], sizing_mode="stretch_width")
+
+    def make_angles():
+        widgets["theta_deg"] = slider(state, "theta_deg")
+        widgets["phi_deg"] = slider(state, "phi_deg")
+        return [widgets["theta_deg"], widgets["phi_deg"]]
+
+    lazy_angles = Lazy(make_angles)
+    angles = lazy_angles.pane
 
     def show_angles(*_):
-        angles.visible = state.dipole == "polar angles"
+        lazy_angles.show(state.dipole == "polar angles")
 
     state.param.watch(show_angles, "dipole")
     show_angles()
@@ -251,14 +283,15 @@ def _environment_group(state: ExplorerState, widgets: dict) -> list:
 
 def _transition_group(state: ExplorerState, widgets: dict) -> list:
     widgets["transition"] = select(state, "transition")
-    custom = pn.Row(
+    lazy_custom = Lazy(lambda: [pn.Row(
         pn.widgets.FloatInput.from_param(state.param.wavelength_nm, sizing_mode="stretch_width"),
         pn.widgets.FloatInput.from_param(state.param.linewidth_mhz, sizing_mode="stretch_width"),
-        sizing_mode="stretch_width")
+        sizing_mode="stretch_width")])
+    custom = lazy_custom.pane
     info = pn.pane.HTML(styles=_SMALL)
 
     def show(*_):
-        custom.visible = state.transition == "custom"
+        lazy_custom.show(state.transition == "custom")
         tr = state.transition_obj
         info.object = (f"λ0 = {tr.wavelength_nm:.6g} nm, Γ0/2π = {tr.linewidth_mhz:.5g} MHz, "
                        f"1/Γ0 = {tr.lifetime_ns:.4g} ns")

@@ -101,15 +101,20 @@ def test_a_drag_solves_the_first_and_the_last_step_only():
     assert st.mode_result is not None
 
 
-def test_a_cancelled_or_overtaken_result_is_never_shown():
-    """A result older than the one on screen is dropped (cache hit while a solve runs)."""
+def _ring_solved():
+    """A ring session on a held runner, solved and with every follow-up job done."""
     runner = ManualRunner()
     st = ExplorerState(scn.load(ROOT / "scenarios" / "nonagon_ring.json"), runner=runner)
     st.solve()
     runner.release(0)
-    first = st.result
     while runner.jobs:
         runner.release(0)
+    return runner, st, st.result
+
+
+def test_a_cancelled_or_overtaken_result_is_never_shown():
+    """A result older than the one on screen is dropped (cache hit while a solve runs)."""
+    runner, st, first = _ring_solved()
     st.n = 12  # a slow solve starts …
     st.n = first.emitters.n  # … and the user goes back: served from the cache at once
     assert st.result.modes is first.modes
@@ -364,13 +369,7 @@ def test_arrays_without_symmetry_show_the_spectrum_then_the_selected_mode():
 
 
 def test_a_scenario_solved_before_comes_from_the_cache():
-    runner = ManualRunner()
-    st = ExplorerState(scn.load(ROOT / "scenarios" / "nonagon_ring.json"), runner=runner)
-    st.solve()
-    runner.release(0)
-    first = st.result
-    while runner.jobs:
-        runner.release(0)
+    runner, st, first = _ring_solved()
     st.n = 12
     runner.release(0)
     while runner.jobs:

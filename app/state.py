@@ -13,7 +13,6 @@ import tempfile
 import threading
 from collections import OrderedDict
 from dataclasses import replace
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -26,7 +25,7 @@ from physics.units import TRANSITIONS, Transition
 
 from . import jobs
 from .binding import ENVIRONMENTS, is_imperfect, parameters_of, probe_of, scenario_document
-from .jobs import DEFECTIVE_NOTE, Latest, Result, SyncRunner  # noqa: F401  (views use the note)
+from .jobs import Latest, Result, SyncRunner
 
 __all__ = ["ExplorerState", "LIVE_DRAG_LIMIT", "NEAR_FIELD_WARN", "SWEEP_PARAMETERS"]
 

@@ -29,7 +29,8 @@ from physics.environment import parts_of
 from physics.geometry import nearest_neighbour_distance
 from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
-from .state import DEFECTIVE_NOTE, ExplorerState
+from .jobs import DEFECTIVE_NOTE
+from .state import ExplorerState
 
 __all__ = ["SpectrumView", "ArrayView", "FarFieldView", "ProbeView", "BandsView", "SweepView",
            "mode_card_html",
@@ -741,7 +742,7 @@ class ProbeView:
         return d
 
     def update(self, *_) -> None:
-        st, an = self.state, self.state.analysis
+        an = self.state.analysis
         if an is None:
             return
         notes = [self._update_spectrum(an), self._update_map(an), self._update_decay(an),

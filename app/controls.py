@@ -363,22 +363,26 @@ def _share_group(state: ExplorerState, widgets: dict) -> list:
 
 def probe_controls(state: ExplorerState, widgets: dict) -> pn.Column:
     """Probe, scan range, field-map plane and decay start: part of the probe section."""
-    for name in ("probe_theta_deg", "probe_phi_deg", "probe_waist", "probe_detuning_min",
-                 "probe_detuning_max", "decay_t_max"):
+    for name in ("probe_detuning_min", "probe_detuning_max", "decay_t_max"):
         widgets[name] = slider(state, name)
+
+    def sliders(*names):
+        for name in names:
+            widgets[name] = slider(state, name)
+        return [widgets[name] for name in names]
+
+    # only the chosen probe's own controls are built (the others when first chosen)
     groups = {
-        "plane_wave": pn.Column(widgets["probe_theta_deg"], widgets["probe_phi_deg"],
-                                sizing_mode="stretch_width"),
-        "gaussian_beam": pn.Column(widgets["probe_waist"],
-                                   note("Beam along +z, focused at the array centre; paraxial, "
-                                        "so keep the waist ≳ 1 λ0."),
-                                   sizing_mode="stretch_width"),
-        "guided": pn.Column(buttons(state, "probe_from_end"), sizing_mode="stretch_width"),
+        "plane_wave": Lazy(lambda: sliders("probe_theta_deg", "probe_phi_deg")),
+        "gaussian_beam": Lazy(lambda: [*sliders("probe_waist"),
+                                       note("Beam along +z, focused at the array centre; "
+                                            "paraxial, so keep the waist ≳ 1 λ0.")]),
+        "guided": Lazy(lambda: [buttons(state, "probe_from_end")]),
     }
 
     def show(*_):
         for key, group in groups.items():
-            group.visible = state.probe_kind == key
+            group.show(state.probe_kind == key)
 
     state.param.watch(show, "probe_kind")
     show()
@@ -386,7 +390,8 @@ def probe_controls(state: ExplorerState, widgets: dict) -> pn.Column:
     widgets["decay_initial"] = select(state, "decay_initial")
     return pn.Column(
         widgets["probe_kind"], widgets["probe_detuning_min"], widgets["probe_detuning_max"],
-        *groups.values(), buttons(state, "probe_polarization"), buttons(state, "map_plane"),
+        *(g.pane for g in groups.values()), buttons(state, "probe_polarization"),
+        buttons(state, "map_plane"),
         widgets["decay_initial"], widgets["decay_t_max"],
         note("Linear response only: the probe is taken far below saturation. Laser safety "
              "follows local rules and licensed practice, which Choir does not assess."),

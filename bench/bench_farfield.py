@@ -29,7 +29,6 @@ import argparse
 import datetime as _dt
 import os
 import platform
-import subprocess
 import sys
 import time
 from pathlib import Path
@@ -41,6 +40,7 @@ from threadpoolctl import threadpool_info, threadpool_limits
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))  # run from a checkout
 
+from bench_core import _code_version as code_version  # noqa: E402  (bench/ is on the path)
 from physics import Emitters, FreeSpace, lattices  # noqa: E402
 from physics.far_field import (angular_order, cap_grid, far_field_image,  # noqa: E402
                                far_field_power, hemisphere_directions, lens_fraction,
@@ -52,19 +52,6 @@ SPACING = 0.3  # λ0
 JITTER = 0.01  # λ0, standard deviation per axis
 TARGET_S = 0.05
 SIDES = ("+z", "-z")
-
-
-def code_state() -> str:
-    """Commit of the checkout and any uncommitted files under physics/ (what was measured)."""
-    try:
-        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=ROOT,
-                              capture_output=True, text=True, check=True).stdout.strip()
-        dirty = subprocess.run(["git", "status", "--porcelain", "--", "physics"], cwd=ROOT,
-                               capture_output=True, text=True, check=True).stdout.split("\n")
-    except (OSError, subprocess.CalledProcessError):
-        return "unknown (not a git checkout)"
-    changed = [line[3:] for line in dirty if line.strip()]
-    return f"commit {head}" + (f" + uncommitted: {', '.join(changed)}" if changed else "")
 
 
 def best_time(fn, repeat: int):
@@ -110,7 +97,7 @@ def main() -> None:
     print(f"  machine: {platform.machine()}, nproc = {os.cpu_count()}, python "
           f"{platform.python_version()}, numpy {np.__version__}, scipy {scipy.__version__}")
     print(f"  BLAS: {blas}, held to 1 thread (threadpoolctl)")
-    print(f"  code: {code_state()}")
+    print(f"  code: {code_version()}")
     print(f"  best of {args.repeat} runs each; the machine is shared, so timings are noisy")
     print(f"  baseline: direct sum far_field_power on the same pixels / cap directions")
     print()

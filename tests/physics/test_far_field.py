@@ -238,6 +238,17 @@ def test_sphere_grid_integrates_low_harmonics_exactly(order: int) -> None:
     assert np.sum(g.weights * (n[:, 0] * n[:, 1]) ** 2) == pytest.approx(4 * np.pi / 15, rel=1e-13)
 
 
+def _image_and_direct_sum(em, side, *, pixels, seed):
+    """far_field_image of random amplitudes, the direct sum on the same pixels, the disc mask."""
+    rng = np.random.default_rng(seed)
+    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
+    u = np.linspace(-1.0, 1.0, pixels)
+    img = far_field_image(em, c, u, side)
+    ux, uy = np.meshgrid(u, u, indexing="xy")
+    inside = ux ** 2 + uy ** 2 <= 1.0
+    return img, far_field_power(em, c, hemisphere_directions(ux[inside], uy[inside], side)), inside
+
+
 @pytest.mark.parametrize("make", [
     pytest.param(lambda: lattices.square(9, 7, 0.3, "x"), id="planar"),
     pytest.param(lambda: lattices.cubic(3, 4, 3, 0.35, "sigma+"), id="layers"),
@@ -247,14 +258,7 @@ def test_sphere_grid_integrates_low_harmonics_exactly(order: int) -> None:
 @pytest.mark.parametrize("side", ["+z", "-z"])
 def test_far_field_image_equals_the_direct_sum(make, side):
     """The layer-separable evaluation is an exact rewriting of the sum (algebra; common practice, no source)."""
-    em = make()
-    rng = np.random.default_rng(5)
-    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
-    u = np.linspace(-1.0, 1.0, 41)
-    img = far_field_image(em, c, u, side)
-    ux, uy = np.meshgrid(u, u, indexing="xy")
-    inside = ux ** 2 + uy ** 2 <= 1.0
-    ref = far_field_power(em, c, hemisphere_directions(ux[inside], uy[inside], side))
+    img, ref, inside = _image_and_direct_sum(make(), side, pixels=41, seed=5)
     assert np.all(np.isnan(img[~inside]))
     # round-off only: 1e-12 of the peak
     np.testing.assert_allclose(img[inside], ref, rtol=0, atol=1e-12 * ref.max())
@@ -330,14 +334,7 @@ def test_far_field_image_without_layers_equals_the_direct_sum(make, side):
     # (Jackson, Classical Electrodynamics, 3rd ed., Eq. 9.22); the z expansion in
     # far_field_image is a Taylor series with a bounded remainder (common practice,
     # no source).
-    em = make()
-    rng = np.random.default_rng(12)
-    c = rng.normal(size=em.n) + 1j * rng.normal(size=em.n)
-    u = np.linspace(-1.0, 1.0, 61)
-    img = far_field_image(em, c, u, side)
-    ux, uy = np.meshgrid(u, u, indexing="xy")
-    inside = ux ** 2 + uy ** 2 <= 1.0
-    ref = far_field_power(em, c, hemisphere_directions(ux[inside], uy[inside], side))
+    img, ref, inside = _image_and_direct_sum(make(), side, pixels=61, seed=12)
     assert np.all(np.isnan(img[~inside]))
     np.testing.assert_allclose(img[inside], ref, rtol=0, atol=IMAGE_TOL * ref.max())
 

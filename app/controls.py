@@ -164,7 +164,7 @@ def _array_group(state: ExplorerState, widgets: dict) -> list:
         if state.result is None:
             return
         tr, em = state.transition_obj, state.result.emitters
-        nn = (f" · nearest neighbours {nearest_distance(state):.3g} λ0" if em.n > 1 else "")
+        nn = (f" · nearest neighbours {state.nearest_neighbours():.3g} λ0" if em.n > 1 else "")
         extra = ""
         if state.lattice == "ring":
             r = ring_radius(state.n, state.spacing)
@@ -179,17 +179,6 @@ def _array_group(state: ExplorerState, widgets: dict) -> list:
     undo.on_click(lambda e: state.runner.on_loop(state.undo))
     state.param.watch(lambda e: setattr(undo, "disabled", e.new == 0), "undo_depth")
     return [widgets["lattice"], *(g.pane for g in geometry.values()), explicit, info, undo]
-
-
-def nearest_distance(state: ExplorerState) -> float:
-    """Nearest-neighbour distance of the shown array [λ0] (cached per result)."""
-    from physics.geometry import nearest_neighbour_distance
-
-    res = state.result
-    cached = getattr(state, "_nn_cache", None)
-    if cached is None or cached[0] is not res:
-        state._nn_cache = (res, nearest_neighbour_distance(res.emitters))
-    return state._nn_cache[1]
 
 
 def imperfection_controls(state: ExplorerState, widgets: dict) -> list:

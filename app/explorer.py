@@ -65,6 +65,11 @@ FILL_OWN_WAIT_MS = 1000
 _WAITING_FIRST: set[int] = set()
 
 
+def _served(doc) -> bool:
+    """A live server session (choir serve, panel serve), not a notebook or a test."""
+    return doc is not None and getattr(doc, "session_context", None) is not None
+
+
 def _url_refused(state: ExplorerState):
     def report(values: dict) -> None:
         state.message = ("Some settings in the page address were not applied (out of range or "
@@ -216,7 +221,7 @@ def _header(state: ExplorerState, views: dict) -> pn.Row:
     spinner = views["spinner"] = pn.indicators.LoadingSpinner(value=state.busy, size=22)
     busy_text = pn.pane.HTML("", styles={"font-size": "13px", "color": "#555"})
     doc = pn.state.curdoc
-    served = doc is not None and getattr(doc, "session_context", None) is not None
+    served = _served(doc)
 
     def show_busy(*_):
         spinner.value = state.busy
@@ -308,8 +313,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
     ``page.explorer_open("probe" | "bands" | "sweep" | "imperfections")``.
     """
     doc = pn.state.curdoc
-    # a live server session (choir serve, panel serve), not a notebook or a test
-    served = doc is not None and getattr(doc, "session_context", None) is not None
+    served = _served(doc)
     if state is None:
         state = ExplorerState(runner=ServerRunner(doc) if served else None)
         if scenario is not None:
@@ -397,8 +401,7 @@ def build_explorer(scenario: scn.Scenario | None = None, *, state: ExplorerState
         pn.state.location.sync(state, keys, on_error=_url_refused(state))
     pn.state.onload(start)
     pn.state.on_session_destroyed(lambda ctx: (state.close(), _WAITING_FIRST.discard(me)))
-    if isinstance(state.runner, ServerRunner):
-        state.runner.on_gone = state.close
+    state.runner.on_gone = state.close
     return page
 
 

@@ -364,6 +364,10 @@ class SyncRunner:
     def close(self) -> None:
         """Nothing runs in the background here."""
 
+    def gone(self) -> bool:
+        """A page shown here is never closed behind the runner's back."""
+        return False
+
 
 class Latest:
     """One kind of job of one session: one runs at a time, the latest request wins.

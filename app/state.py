@@ -264,6 +264,7 @@ class ExplorerState(param.Parameterized):
         self._loaded: scn.Scenario | None = None
         self._file_environment: tuple = ((("kind", "free_space"),),)
         self._seed: int | None = None
+        self._nearest: tuple | None = None  # (result, its nearest-neighbour distance)
         if scenario is not None:
             self.apply_scenario(scenario, solve=False)
 
@@ -585,13 +586,24 @@ class ExplorerState(param.Parameterized):
                 f"{imp.jitter[2]:.3g}) λ0 along x, y, z.")
 
     # ------------------------------------------------------------ derived
+    def nearest_neighbours(self) -> float:
+        """Nearest-neighbour distance of the shown array [λ0]; inf for one emitter.
+
+        Computed once per result (the cautions, the array card and the array view
+        all ask for it).
+        """
+        res = self.result
+        if self._nearest is None or self._nearest[0] is not res:
+            self._nearest = (res, nearest_neighbour_distance(res.emitters))
+        return self._nearest[1]
+
     def cautions(self) -> list[str]:
         """Warnings about leaving the model's range of validity for the current result."""
         out: list[str] = []
         res = self.result
         if res is None:
             return out
-        nn = nearest_neighbour_distance(res.emitters)
+        nn = self.nearest_neighbours()
         if nn < NEAR_FIELD_WARN:
             out.append(
                 f"Nearest neighbours are {nn:.3g} λ0 apart (< {NEAR_FIELD_WARN} λ0): the 1/r³ "

@@ -26,7 +26,6 @@ from bokeh.plotting import figure
 
 from physics.ensembles import power_law
 from physics.environment import parts_of
-from physics.geometry import nearest_neighbour_distance
 from physics.modes import SUBRADIANT_BELOW, SUPERRADIANT_ABOVE, radiance_label
 
 from .jobs import DEFECTIVE_NOTE
@@ -464,7 +463,7 @@ class ArrayView:
         amp = np.abs(c)
         a, b = self._axes()
         pos = st.to_length(em.positions)
-        nn = nearest_neighbour_distance(em) if em.n > 1 else 0.5
+        nn = st.nearest_neighbours() if em.n > 1 else 0.5
         r0 = 0.42 * float(st.to_length(min(nn, 1.0)))
         self._writing = True
         try:  # a new mode changes r, phase and amp only: only those are sent
